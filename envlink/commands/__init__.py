@@ -1,0 +1,1 @@
+"""One module per ``envlink`` sub-command; each has ``register(subparsers)`` and ``run(args)``."""

@@ -1,0 +1,27 @@
+"""Shared pytest fixtures and marker handling for the envlink test suite."""
+
+from __future__ import annotations
+
+import importlib.util
+import shutil
+
+import pytest
+
+
+def _have(module: str) -> bool:
+    return importlib.util.find_spec(module) is not None
+
+
+_REQUIREMENTS = {
+    "requires_dask": lambda: _have("dask"),
+    "requires_geotiff": lambda: _have("rioxarray") and _have("rasterio"),
+    "requires_pyarrow": lambda: _have("pyarrow"),
+    "requires_chromium": lambda: shutil.which("chromium") is not None,
+}
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    for item in items:
+        for marker, available in _REQUIREMENTS.items():
+            if item.get_closest_marker(marker) and not available():
+                item.add_marker(pytest.mark.skip(reason=f"{marker}: dependency not installed"))

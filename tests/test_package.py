@@ -1,0 +1,50 @@
+"""The package's public surface: every exported name resolves, the CLI answers --help."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+
+import envlink
+from envlink import cli
+
+
+@pytest.mark.parametrize("name", envlink.__all__)
+def test_every_public_name_resolves(name: str) -> None:
+    assert getattr(envlink, name) is not None
+
+
+def test_locate_subpackage_is_callable_and_importable() -> None:
+    import envlink.locate.coords  # noqa: F401  (submodule import must not break the call)
+
+    assert callable(envlink.locate)
+
+
+def test_error_hierarchy_subclasses_builtins() -> None:
+    assert issubclass(envlink.InputError, ValueError)
+    assert issubclass(envlink.GridError, OSError)
+    assert issubclass(envlink.ModelError, ArithmeticError)
+    assert issubclass(envlink.InputError, envlink.EnvlinkError)
+
+
+def test_every_command_is_registered_and_has_help(capsys: pytest.CaptureFixture[str]) -> None:
+    parser = cli.build_parser()
+    sub = next(a for a in parser._actions if a.dest == "command")
+    assert sorted(sub.choices) == sorted(cli.COMMANDS)  # type: ignore[union-attr]
+    for name in cli.COMMANDS:
+        assert cli.main([name, "--help"]) == 0
+        assert "usage: envlink " + name in capsys.readouterr().out
+
+
+def test_console_entry_point_runs() -> None:
+    out = subprocess.run(
+        [sys.executable, "-m", "envlink", "--help"], capture_output=True, text=True, check=False
+    )
+    assert out.returncode == 0
+    assert "usage: envlink" in out.stdout and "COMMAND" in out.stdout
+
+
+def test_no_command_is_usage_error(capsys: pytest.CaptureFixture[str]) -> None:
+    assert cli.main([]) == 2
