@@ -1,0 +1,471 @@
+"""Site names to coordinates (points) or regions (polygons) through a user gazetteer.
+
+A gazetteer is the user's own list of places: a CSV with a name column and
+coordinates (in any form :mod:`envlink.locate.coords` reads), a GeoPackage /
+shapefile / GeoJSON of points or polygons, or a (Geo)DataFrame. A name is looked
+up exactly, then case- and accent-insensitively, then fuzzily (rapidfuzz
+``token_sort_ratio`` on the normalised names); two fuzzy candidates within a margin
+of each other are reported as ambiguous and never picked.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import unicodedata
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+import pandas as pd
+
+from envlink._util import did_you_mean
+from envlink.errors import InputError
+
+__all__ = ["Gazetteer", "Match", "SiteNameError", "read_gazetteer", "normalise_name"]
+
+MatchMethod = Literal["exact", "casefold", "fuzzy"]
+
+#: Column names recognised automatically (compared case-insensitively), in order of preference.
+NAME_COLUMNS = ("site", "site_name", "sitename", "name", "reef", "locality", "location", "place", "station")
+LAT_COLUMNS = ("lat", "latitude", "site_lat", "decimal_latitude", "decimallatitude", "lat_dd", "y")
+LON_COLUMNS = ("lon", "long", "longitude", "lng", "site_lon", "decimal_longitude", "decimallongitude", "lon_dd", "x")
+COORDS_COLUMNS = ("coords", "coordinates", "coord", "position", "latlon", "lat_lon")
+PRECISION_COLUMNS = ("precision_km", "site_precision_km", "uncertainty_km")
+
+_GEO_SUFFIXES = (".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gml", ".kml")
+_PUNCT = re.compile(r"[\W_]+", re.UNICODE)
+
+
+class SiteNameError(InputError):
+    """A site name that the gazetteer cannot resolve to one place.
+
+    Attributes
+    ----------
+    field : str
+        Always ``"site"``.
+    reason : str
+        Plain-words explanation, with the closest gazetteer name when there is one.
+    code : str
+        Short QA code: ``site_not_found``.
+    """
+
+    def __init__(self, value: str, reason: str, code: str = "site_not_found") -> None:
+        self.field = "site"
+        self.value = value
+        self.reason = reason
+        self.code = code
+        super().__init__(f"site {value!r}: {reason}")
+
+
+@dataclass(frozen=True)
+class Match:
+    """The place a site name resolved to.
+
+    Attributes
+    ----------
+    query : str
+        The name as given.
+    name : str or None
+        The gazetteer name matched; None when the query was ambiguous.
+    lat, lon : float
+        WGS84 decimal degrees, lon in [-180, 180); NaN when ambiguous. For a polygon,
+        a representative point that lies inside it (shapely ``representative_point``).
+    wkt : str or None
+        The polygon in lon/lat WGS84 as WKT, or None for a point site.
+    method : {"exact", "casefold", "fuzzy"}
+        How the name was matched.
+    score : float
+        100 for exact and casefold matches; the rapidfuzz score for fuzzy ones.
+    candidates : tuple of (str, float)
+        The gazetteer names considered (name, score), best first.
+    flags : tuple of str
+        QA codes: ``site_name_casefold``, ``site_name_fuzzy``, ``ambiguous_site_name``,
+        plus any flag the gazetteer's own coordinate text raised (``swapped_lat_lon``).
+    precision_km : float
+        For a polygon, the radius of the circle of equal geodesic area, sqrt(area/π);
+        for a point, the precision its coordinate text implies, or the gazetteer's
+        precision column; NaN when unknown.
+    notes : tuple of str
+        Human sentences explaining each flag.
+    """
+
+    query: str
+    name: str | None
+    lat: float
+    lon: float
+    wkt: str | None
+    method: MatchMethod
+    score: float
+    candidates: tuple[tuple[str, float], ...]
+    flags: tuple[str, ...]
+    precision_km: float
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class _Entry:
+    name: str
+    lat: float
+    lon: float
+    wkt: str | None
+    precision_km: float
+    flags: tuple[str, ...]
+
+    def same_place(self, other: _Entry) -> bool:
+        return (self.lat, self.lon, self.wkt) == (other.lat, other.lon, other.wkt)
+
+
+def normalise_name(name: str) -> str:
+    """Fold a site name for case- and accent-insensitive comparison.
+
+    Unicode NFKD decomposition, combining marks dropped, ``casefold``, every run of
+    punctuation or white space collapsed to one space.
+
+    Examples
+    --------
+    >>> normalise_name("  Récif  d'Ossë-Nord ")
+    'recif d osse nord'
+    """
+    decomposed = unicodedata.normalize("NFKD", str(name))
+    stripped = "".join(ch for ch in decomposed if not unicodedata.combining(ch))
+    return _PUNCT.sub(" ", stripped.casefold()).strip()
+
+
+class Gazetteer:
+    """Named places to look site names up in; build one with :func:`read_gazetteer`.
+
+    Parameters
+    ----------
+    entries : sequence of _Entry
+        The places (internal; use :func:`read_gazetteer`).
+    source : str
+        Where they came from, for messages.
+    """
+
+    def __init__(self, entries: Sequence[_Entry], source: str = "gazetteer") -> None:
+        self.entries = tuple(entries)
+        self.source = source
+        self._exact: dict[str, list[_Entry]] = {}
+        self._folded: dict[str, list[_Entry]] = {}
+        for entry in self.entries:
+            self._exact.setdefault(entry.name, []).append(entry)
+            self._folded.setdefault(normalise_name(entry.name), []).append(entry)
+        self._keys = list(self._folded)
+
+    def __len__(self) -> int:
+        return len(self.entries)
+
+    def __repr__(self) -> str:
+        return f"<Gazetteer {self.source!r}: {len(self)} places>"
+
+    @property
+    def names(self) -> list[str]:
+        """Gazetteer names, in file order."""
+        return [e.name for e in self.entries]
+
+    def match(self, name: str, *, threshold: float = 85.0, margin: float = 5.0) -> Match:
+        """Resolve one site name.
+
+        Parameters
+        ----------
+        name : str
+            The name as reported.
+        threshold : float, default 85
+            Lowest rapidfuzz ``token_sort_ratio`` score (0-100) a fuzzy match may have.
+        margin : float, default 5
+            Fuzzy candidates (of distinct places) scoring within this many points of
+            the best are ambiguous.
+
+        Returns
+        -------
+        Match
+
+        Raises
+        ------
+        SiteNameError
+            No gazetteer name matches exactly, case-/accent-insensitively, or with a
+            fuzzy score at or above ``threshold``; the message names the closest one.
+
+        Examples
+        --------
+        >>> import pandas as pd
+        >>> gz = read_gazetteer(pd.DataFrame({"name": ["Kestrel Reef"], "lat": [-8.5], "lon": [160.25]}))
+        >>> m = gz.match("kestrel  reef")
+        >>> (m.name, m.method, m.lat, m.lon, m.flags)
+        ('Kestrel Reef', 'casefold', -8.5, 160.25, ('site_name_casefold',))
+        """
+        query = str(name).strip()
+        found = self._exact.get(query)
+        if found:
+            return self._resolve(query, [(e, 100.0) for e in found], "exact")
+        key = normalise_name(query)
+        found = self._folded.get(key)
+        if found:
+            return self._resolve(query, [(e, 100.0) for e in found], "casefold")
+        return self._fuzzy(query, key, threshold, margin)
+
+    def _fuzzy(self, query: str, key: str, threshold: float, margin: float) -> Match:
+        from rapidfuzz import fuzz, process
+
+        scored = process.extract(key, self._keys, scorer=fuzz.token_sort_ratio, limit=10)
+        near = [(k, float(s)) for k, s, _ in scored if s >= threshold]
+        if not near:
+            closest = (
+                f"; the closest is {self._folded[scored[0][0]][0].name!r} "
+                f"(score {scored[0][1]:.0f} < threshold {threshold:g})"
+                if scored
+                else ""
+            )
+            raise SiteNameError(query, f"not in {self.source}{closest}.")
+        best = near[0][1]
+        pairs = [(e, s) for k, s in near if s >= best - margin for e in self._folded[k]]
+        return self._resolve(query, pairs, "fuzzy", all_near=near)
+
+    def _resolve(
+        self,
+        query: str,
+        pairs: list[tuple[_Entry, float]],
+        method: MatchMethod,
+        all_near: list[tuple[str, float]] | None = None,
+    ) -> Match:
+        places: list[tuple[_Entry, float]] = []
+        for entry, score in pairs:
+            if not any(entry.same_place(p) for p, _ in places):
+                places.append((entry, score))
+        cands = tuple((e.name, round(s, 1)) for e, s in pairs)
+        if all_near is not None:
+            cands = tuple((self._folded[k][0].name, round(s, 1)) for k, s in all_near)
+        if len(places) > 1:
+            listing = ", ".join(
+                f"{e.name!r} (score {s:.0f}, {e.lat:.4f}, {e.lon:.4f})" for e, s in places
+            )
+            note = (
+                f"site {query!r}: ambiguous; {len(places)} places in {self.source} match "
+                f"equally well: {listing}; none was chosen, write the exact name."
+            )
+            return Match(
+                query, None, math.nan, math.nan, None, method, places[0][1],
+                cands, ("ambiguous_site_name",), math.nan, (note,),
+            )
+        entry, score = places[0]
+        flags = list(entry.flags)
+        notes: list[str] = []
+        if method == "casefold":
+            flags.insert(0, "site_name_casefold")
+            notes.append(f"site {query!r}: matched {entry.name!r} ignoring case and accents.")
+        elif method == "fuzzy":
+            flags.insert(0, "site_name_fuzzy")
+            notes.append(f"site {query!r}: matched {entry.name!r} by spelling (score {score:.0f}).")
+        if entry.flags:
+            notes.append(
+                f"site {query!r}: the gazetteer's coordinates for {entry.name!r} were "
+                f"flagged {', '.join(entry.flags)}."
+            )
+        return Match(
+            query, entry.name, entry.lat, entry.lon, entry.wkt, method, score,
+            cands, tuple(flags), entry.precision_km, tuple(notes),
+        )
+
+
+def _pick(columns: Sequence[str], given: str | None, choices: Sequence[str], what: str, source: str) -> str | None:
+    if given is not None:
+        if given not in columns:
+            raise InputError(
+                f"Gazetteer {source} has no column {given!r}.{did_you_mean(given, columns)} "
+                f"Columns: {', '.join(repr(c) for c in columns)}."
+            )
+        return given
+    lowered = {str(c).strip().lower(): c for c in columns}
+    for choice in choices:
+        if choice in lowered:
+            return lowered[choice]
+    return None
+
+
+def _wrap_lon(lon: float) -> float:
+    return float((lon + 180.0) % 360.0 - 180.0)
+
+
+def _entries_from_table(df: pd.DataFrame, source: str, name_col: str | None, lat_col: str | None,
+                        lon_col: str | None, coords_col: str | None, precision_col: str | None) -> list[_Entry]:
+    from envlink.locate.coords import CoordinateError, parse_coordinates, parse_lat_lon
+
+    cols = [str(c) for c in df.columns]
+    df = df.set_axis(cols, axis=1)
+    name = _pick(cols, name_col, NAME_COLUMNS, "name", source)
+    lat = _pick(cols, lat_col, LAT_COLUMNS, "latitude", source)
+    lon = _pick(cols, lon_col, LON_COLUMNS, "longitude", source)
+    coords = _pick(cols, coords_col, COORDS_COLUMNS, "coordinates", source) if not (lat and lon) else None
+    prec = _pick(cols, precision_col, PRECISION_COLUMNS, "precision", source)
+    listing = ", ".join(repr(c) for c in cols)
+    if name is None:
+        raise InputError(
+            f"Gazetteer {source} has no site-name column (looked for {', '.join(NAME_COLUMNS)}); "
+            f"name it with name_col= (--gazetteer-name). Columns: {listing}."
+        )
+    if not ((lat and lon) or coords):
+        raise InputError(
+            f"Gazetteer {source} has no coordinate columns (looked for latitude/longitude "
+            f"columns such as 'lat'/'lon', or a 'coords' column); name them with "
+            f"lat_col=/lon_col=. Columns: {listing}."
+        )
+    entries: list[_Entry] = []
+    for i, row in enumerate(df.itertuples(index=False, name=None)):
+        rec = dict(zip(cols, row, strict=True))
+        texts = [_text(rec[c]) for c in (name, lat, lon, coords) if c]
+        if all(t == "" for t in texts):
+            continue  # a blank line in a spreadsheet
+        site = _text(rec[name])
+        where = f"Gazetteer {source} row {i + 1}"
+        if not site:
+            raise InputError(f"{where}: the site name ({name!r}) is blank.")
+        try:
+            if lat and lon:
+                c = parse_lat_lon(_text(rec[lat]), _text(rec[lon]))
+            else:
+                c = parse_coordinates(_text(rec[coords]))  # type: ignore[index]
+        except CoordinateError as exc:
+            raise InputError(f"{where} (site {site!r}): {exc.field}: {exc.reason}") from exc
+        precision = c.precision_km
+        if prec is not None and _text(rec[prec]):
+            try:
+                precision = float(_text(rec[prec]).replace(",", "."))
+            except ValueError:
+                raise InputError(
+                    f"{where} (site {site!r}): precision {_text(rec[prec])!r} in column "
+                    f"{prec!r} is not a number of km."
+                ) from None
+        entries.append(_Entry(site, float(c.lat), _wrap_lon(c.lon), None, float(precision), tuple(c.flags)))
+    return entries
+
+
+def _text(value: Any) -> str:
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return ""
+    return str(value).strip()
+
+
+def _entries_from_geo(gdf: Any, source: str, name_col: str | None, precision_col: str | None) -> list[_Entry]:
+    from pyproj import Geod
+
+    cols = [str(c) for c in gdf.columns if c != gdf.geometry.name]
+    name = _pick(cols, name_col, NAME_COLUMNS, "name", source)
+    if name is None:
+        raise InputError(
+            f"Gazetteer {source} has no site-name column (looked for {', '.join(NAME_COLUMNS)}); "
+            f"name it with name_col=. Columns: {', '.join(repr(c) for c in cols)}."
+        )
+    prec = _pick(cols, precision_col, PRECISION_COLUMNS, "precision", source)
+    if gdf.crs is None:
+        bounds = gdf.total_bounds
+        if np.isfinite(bounds).all() and (abs(bounds[1]) > 90 or abs(bounds[3]) > 90):
+            raise InputError(
+                f"Gazetteer {source} states no coordinate reference system and its "
+                f"coordinates are not degrees (y from {bounds[1]:g} to {bounds[3]:g}); "
+                "set its CRS (for example with geopandas' set_crs) and try again."
+            )
+    elif not gdf.crs.equals("EPSG:4326"):
+        gdf = gdf.to_crs("EPSG:4326")
+    geod = Geod(ellps="WGS84")
+    entries: list[_Entry] = []
+    for i, (site_value, geom) in enumerate(zip(gdf[name], gdf.geometry, strict=True)):
+        site = _text(site_value)
+        where = f"Gazetteer {source} feature {i + 1}"
+        if not site:
+            raise InputError(f"{where}: the site name ({name!r}) is blank.")
+        if geom is None or geom.is_empty:
+            raise InputError(f"{where} (site {site!r}): the geometry is empty.")
+        precision = math.nan
+        if prec is not None and _text(gdf[prec].iloc[i]):
+            precision = float(_text(gdf[prec].iloc[i]).replace(",", "."))
+        kind = geom.geom_type
+        if kind == "Point":
+            entries.append(_Entry(site, float(geom.y), _wrap_lon(geom.x), None, precision, ()))
+        elif kind in ("Polygon", "MultiPolygon"):
+            point = geom.representative_point()
+            area, _ = geod.geometry_area_perimeter(geom)
+            radius = math.sqrt(abs(area) / math.pi) / 1000.0
+            entries.append(_Entry(site, float(point.y), _wrap_lon(point.x), geom.wkt, radius, ()))
+        else:
+            raise InputError(
+                f"{where} (site {site!r}): a {kind} is not a site; expected points or polygons."
+            )
+    return entries
+
+
+def read_gazetteer(
+    source: str | os.PathLike[str] | pd.DataFrame,
+    *,
+    name_col: str | None = None,
+    lat_col: str | None = None,
+    lon_col: str | None = None,
+    coords_col: str | None = None,
+    precision_col: str | None = None,
+) -> Gazetteer:
+    """Read a gazetteer of named sites (points or polygons).
+
+    Parameters
+    ----------
+    source : path-like or DataFrame or GeoDataFrame
+        A CSV / TSV / Excel / Parquet table with a name column and coordinates
+        (``lat``/``lon`` columns, or one ``coords`` column, in any form
+        :func:`envlink.parse_coordinates` reads); a GeoPackage, shapefile or GeoJSON
+        of points or polygons (read with geopandas' pyogrio engine; reprojected to
+        WGS84 lon/lat if it has another CRS); or a DataFrame / GeoDataFrame.
+    name_col, lat_col, lon_col, coords_col, precision_col : str, optional
+        Column names; by default they are recognised among common names
+        (``site``/``name``..., ``lat``/``latitude``..., ``lon``/``longitude``...,
+        ``coords``..., ``precision_km``), case-insensitively.
+
+    Returns
+    -------
+    Gazetteer
+
+    Raises
+    ------
+    InputError
+        Unreadable file, no name or coordinate column, a blank name, unreadable
+        coordinates, or a geometry that is neither a point nor a polygon; the
+        message names the file, the row and the reason.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> gz = read_gazetteer(pd.DataFrame({"Site": ["Ossel Bank"], "coords": ["8°30'S 160°15'E"]}))
+    >>> m = gz.match("Ossel Bank")
+    >>> (m.lat, m.lon, m.method)
+    (-8.5, 160.25, 'exact')
+    """
+    try:
+        import geopandas as gpd
+    except ImportError:  # pragma: no cover - geopandas is a runtime dependency
+        gpd = None
+    if isinstance(source, pd.DataFrame):
+        label = "(table)"
+        if gpd is not None and isinstance(source, gpd.GeoDataFrame):
+            return Gazetteer(_entries_from_geo(source, label, name_col, precision_col), label)
+        return Gazetteer(
+            _entries_from_table(source, label, name_col, lat_col, lon_col, coords_col, precision_col),
+            label,
+        )
+    path = Path(source)
+    label = repr(str(path))
+    if not path.exists():
+        raise InputError(f"Cannot read gazetteer {label}: no such file.")
+    if path.suffix.lower() in _GEO_SUFFIXES:
+        try:
+            gdf = gpd.read_file(path, engine="pyogrio")  # type: ignore[union-attr]
+        except Exception as exc:  # noqa: BLE001 - any reader failure is the user's file
+            raise InputError(f"Cannot read gazetteer {label}: {exc}") from exc
+        return Gazetteer(_entries_from_geo(gdf, label, name_col, precision_col), label)
+    from envlink.tables import read_table
+
+    table = read_table(path, as_text=True)
+    return Gazetteer(
+        _entries_from_table(table, label, name_col, lat_col, lon_col, coords_col, precision_col),
+        label,
+    )
