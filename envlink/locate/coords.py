@@ -137,13 +137,6 @@ def _assemble(a: Angle, b: Angle, axes: tuple[Axis, Axis] | None = None) -> Coor
     """Decide which angle is the latitude (labels, then letters, then order) and validate."""
     flags: list[str] = []
     ax_a, ax_b = axes if axes is not None else (a.axis, b.axis)
-    if axes is not None:
-        for angle, ax in ((a, ax_a), (b, ax_b)):
-            if angle.axis is not None and angle.axis != ax:
-                raise CoordinateError(
-                    ax, f"{angle.text!r} has the letter {angle.letter} but is labelled {ax}",
-                    "wrong_axis_letter",
-                )
     if ax_a is not None and ax_a == ax_b:
         kind = "north-south (latitudes)" if ax_a == "lat" else "east-west (longitudes)"
         raise CoordinateError(
