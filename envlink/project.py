@@ -1,0 +1,483 @@
+"""The TOML project file: load and validate it, then run the whole pipeline from it.
+
+A project file names the studies table and its columns, the gazetteer, the grids,
+the covariates (grid, variable, statistic, window, spatial rule), the effect sizes,
+the model and the exports; every key is described in ``docs/project-file.md`` and
+checked by :func:`load_project`, whose errors name the key, its line in the file
+and the allowed values. :func:`run_project` runs locate -> attach (per covariate,
+with an on-disk extraction cache) -> effect sizes -> meta-regression -> export ->
+report; :func:`run_demo` runs the bundled invented demo.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import sys
+import tempfile
+import time
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from envlink._projectschema import validate
+from envlink.errors import InputError
+
+__all__ = ["Project", "RunResult", "load_project", "run_project", "run_demo"]
+
+
+@dataclass(frozen=True)
+class Project:
+    """A validated project file. Paths are absolute (resolved against the file's folder).
+
+    Attributes
+    ----------
+    source : pathlib.Path or None
+        The file read (None for a project given as text).
+    text, sha256 : str
+        The file's text and the SHA-256 of its bytes (recorded in provenance).
+    data : dict
+        The parsed, validated TOML.
+    title, out, cache_dir, studies, gazetteer
+        Resolved settings (``cache_dir`` None means ``out / ".cache"``).
+    """
+
+    source: Path | None
+    text: str
+    sha256: str
+    data: dict[str, Any]
+    root: Path
+    title: str
+    out: Path
+    cache_dir: Path | None
+    studies: Path
+    gazetteer: Path | None
+
+    def section(self, name: str) -> dict[str, Any]:
+        """The section ``name`` (an empty dict when absent)."""
+        value = self.data.get(name, {})
+        return dict(value) if isinstance(value, dict) else value
+
+    @property
+    def covariates(self) -> list[dict[str, Any]]:
+        """The ``[[covariates]]`` tables, in file order."""
+        return [dict(c) for c in self.data.get("covariates", [])]
+
+
+@dataclass
+class RunResult:
+    """What :func:`run_project` produced.
+
+    Attributes
+    ----------
+    out : pathlib.Path
+        The output folder.
+    table : pandas.DataFrame
+        The enriched table (every input row and column, then the added columns).
+    fit : object or None
+        The fitted meta-regression.
+    paths : dict of str to pathlib.Path
+        Files written (``csv``, ``datapackage``, ``parquet``, ``gpkg``, ``fit_json``,
+        ``fit_text``, ``report``).
+    fit_rows : int
+        Rows that entered the model.
+    windows_tried : int
+        Covariates (window and statistic choices) computed.
+    seconds : dict of str to float
+        Wall time of each step.
+    """
+
+    out: Path
+    table: pd.DataFrame
+    fit: Any
+    paths: dict[str, Path]
+    fit_rows: int
+    windows_tried: int
+    seconds: dict[str, float] = field(default_factory=dict)
+
+
+def load_project(path: str | os.PathLike[str]) -> Project:
+    """Read and validate a TOML project file.
+
+    Parameters
+    ----------
+    path : path-like
+        The project file. Relative paths inside it are relative to its folder.
+
+    Returns
+    -------
+    Project
+
+    Raises
+    ------
+    InputError
+        Unreadable file, TOML syntax error (with its line), an unknown section or key,
+        a bad value, or a missing required key; the message names the key, its line
+        and what is allowed.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "p.toml"
+    >>> _ = p.write_text('[studies]\\npath = "t.csv"\\n[model]\\nmethod = "REMl"\\n')
+    >>> load_project(p)
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: ...p.toml, line 4: the key 'model.method' must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; got 'REMl'.
+    """
+    from envlink.export import file_sha256
+
+    p = Path(path)
+    if not p.is_file():
+        raise InputError(f"Cannot read project file {str(p)!r}: no such file.")
+    raw = p.read_bytes()
+    try:
+        text = raw.decode("utf-8")
+        data = tomllib.loads(text)
+    except UnicodeDecodeError as exc:
+        raise InputError(f"Cannot read project file {str(p)!r}: not UTF-8 text ({exc}).") from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{p}: not valid TOML: {exc}.") from exc
+    validate(data, text, str(p))
+    root = p.resolve().parent
+    proj = data.get("project", {})
+    loc = data.get("locate", {})
+
+    def resolve(value: str) -> Path:
+        q = Path(os.path.expanduser(value))
+        return q if q.is_absolute() else root / q
+
+    return Project(
+        source=p, text=text, sha256=file_sha256(p), data=data, root=root,
+        title=proj.get("title", "envlink report"), out=resolve(proj.get("out", "envlink-out")),
+        cache_dir=resolve(proj["cache_dir"]) if "cache_dir" in proj else None,
+        studies=resolve(data["studies"]["path"]),
+        gazetteer=resolve(loc["gazetteer"]) if "gazetteer" in loc else None,
+    )  # fmt: skip
+
+
+def _where(project: Project, *path: Any) -> str:
+    from envlink._projectschema import key_lines
+
+    lines = key_lines(project.text)
+    for n in range(len(path), 0, -1):
+        if tuple(path[:n]) in lines:
+            return f"{project.source}, line {lines[tuple(path[:n])]}"
+    return str(project.source)
+
+
+def _check_columns(project: Project, table: pd.DataFrame) -> None:
+    """Every column named in the project exists in the studies table."""
+    from envlink._util import did_you_mean
+
+    have = [str(c) for c in table.columns]
+    wanted: list[tuple[tuple[str, ...], str]] = []
+    if "study" in project.section("studies"):
+        wanted.append((("studies", "study"), project.section("studies")["study"]))
+    for key in ("lat", "lon", "coords", "site", "period", "start", "end"):
+        if key in project.section("locate"):
+            wanted.append((("locate", key), project.section("locate")[key]))
+    for role, col in project.section("effects").get("columns", {}).items():
+        wanted.append((("effects", "columns", role), col))
+    for key in ("nested", "cluster"):
+        if key in project.section("model"):
+            wanted.append((("model", key), project.section("model")[key]))
+    for path, col in wanted:
+        if col not in have:
+            dotted = ".".join(path)
+            raise InputError(
+                f"{_where(project, *path)}: the key {dotted!r} names column {col!r}, which the "
+                f"studies table {str(project.studies)!r} does not have.{did_you_mean(col, have)} "
+                f"Columns: {', '.join(repr(c) for c in have)}."
+            )
+
+
+def _formula_columns(formula: str, columns: list[str]) -> list[str]:
+    tokens = set(re.findall(r"[A-Za-z_][A-Za-z0-9_.]*", formula))
+    return [c for c in columns if c in tokens]
+
+
+def _targets(project: Project, out: Path) -> dict[str, Path]:
+    exp = project.section("export")
+    name = exp.get("name", "enriched")
+    formats = exp.get("formats", ["csv", "parquet", "gpkg"])
+    paths: dict[str, Path] = {}
+    if "csv" in formats:
+        paths.update(csv=out / f"{name}.csv", datapackage=out / "datapackage.json")
+    if "parquet" in formats:
+        paths["parquet"] = out / f"{name}.parquet"
+    if "gpkg" in formats:
+        paths["gpkg"] = out / f"{name}.gpkg"
+    if "model" in project.data:
+        paths.update(fit_json=out / "fit.json", fit_text=out / "fit.txt")
+    if exp.get("report", True):
+        paths["report"] = out / "report.html"
+    return paths
+
+
+class _Steps:
+    """A tqdm bar over the pipeline's steps (to stderr) and their wall times."""
+
+    def __init__(self, total: int, progress: bool | None):
+        from tqdm.auto import tqdm
+
+        disable = (not sys.stderr.isatty()) if progress is None else not progress
+        self.bar = tqdm(total=total, desc="envlink run", unit="step", disable=disable,
+                        file=sys.stderr, leave=False)  # fmt: skip
+        self.seconds: dict[str, float] = {}
+        self._t = time.perf_counter()
+
+    def done(self, name: str) -> None:
+        now = time.perf_counter()
+        self.seconds[name] = now - self._t
+        self._t = now
+        self.bar.set_postfix_str(name)
+        self.bar.update(1)
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str):
+    import envlink
+
+    model = project.section("model")
+    formula = model.get("moderators")
+    needed = [effect, variance]
+    if formula:
+        needed += _formula_columns(formula, [str(c) for c in table.columns])
+    needed += [model[k] for k in ("nested", "cluster") if k in model]
+    ok = np.ones(len(table), dtype=bool)
+    if "locate_status" in table:
+        ok &= table["locate_status"].astype(str).to_numpy() != "rejected"
+    for col in needed:
+        s = table[col]
+        if col in (effect, variance) or pd.api.types.is_numeric_dtype(s.dtype):
+            ok &= np.isfinite(pd.to_numeric(s, errors="coerce").to_numpy(dtype=float))
+        else:
+            ok &= (s.notna() & (s.astype(str) != "")).to_numpy()
+    ok &= pd.to_numeric(table[variance], errors="coerce").to_numpy(dtype=float) > 0
+    if ok.sum() < 3:
+        raise InputError(
+            f"{_where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
+            f"and every moderator ({', '.join(needed)}); the model needs at least 3."
+        )
+    options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
+    reg = envlink.MetaRegression(moderators=formula, **options)
+    fit = reg.fit(table.loc[ok].reset_index(drop=True), effect=effect, variance=variance)
+    used = table.loc[ok]
+    egger = envlink.egger_test(pd.to_numeric(used[effect]).to_numpy(dtype=float),
+                               pd.to_numeric(used[variance]).to_numpy(dtype=float))  # fmt: skip
+    return fit, ok, egger
+
+
+def run_project(
+    project: Project | str | os.PathLike[str],
+    *,
+    out: str | os.PathLike[str] | None = None,
+    force: bool = False,
+    progress: bool | None = None,
+) -> RunResult:
+    """Run the whole pipeline described by a project file.
+
+    Parameters
+    ----------
+    project : Project or path-like
+        A project from :func:`load_project`, or the file's path.
+    out : path-like, optional
+        Output folder; default the file's ``[project] out`` (relative to the file).
+    force : bool, default False
+        Replace existing outputs. Without it, an existing output is an
+        :class:`InputError` raised before any work is done.
+    progress : bool, optional
+        Show a progress bar on stderr (default: when stderr is a terminal).
+
+    Returns
+    -------
+    RunResult
+
+    Raises
+    ------
+    InputError
+        A bad project file, a missing column or file (the key and line are named),
+        or existing outputs without ``force``.
+    EnvlinkError
+        A stage failed (grid, model).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (d / "t.csv").write_text("lat,lon,when\\n-9.5,-117.2,March 2008\\n")
+    >>> _ = (d / "p.toml").write_text(
+    ...     '[studies]\\npath = "t.csv"\\n[locate]\\nlat = "lat"\\nlon = "lon"\\n'
+    ...     'period = "when"\\n[export]\\nformats = ["csv"]\\nreport = false\\n')
+    >>> r = run_project(d / "p.toml", out=d / "out", progress=False)
+    >>> r.table[["site_lat", "period_start"]].values.tolist()
+    [[-9.5, '2008-03-01']]
+    """
+    import envlink
+    from envlink.export import export_table
+    from envlink.tables import read_table
+
+    if not isinstance(project, Project):
+        project = load_project(project)
+    out_dir = Path(out) if out is not None else project.out
+    targets = _targets(project, out_dir)
+    existing = [str(p) for p in targets.values() if p.exists()]
+    if existing and not force:
+        raise InputError(
+            f"Output exists and would be overwritten: {', '.join(repr(p) for p in existing)}; "
+            "pass --force (force=True) to replace it."
+        )
+    cache = project.cache_dir or out_dir / ".cache"
+    covs = project.covariates
+    steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
+                   + bool(targets.get("report")), progress)  # fmt: skip
+    try:
+        table = read_table(project.studies, as_text=True)
+        input_columns = [str(c) for c in table.columns]
+        _check_columns(project, table)
+        steps.done("read")
+        loc = project.section("locate")
+        kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}
+        gazetteer = envlink.read_gazetteer(project.gazetteer) if project.gazetteer else None
+        table = envlink.locate(table, gazetteer=gazetteer, progress=False, **kwargs)
+        steps.done("locate")
+        provenance: dict[str, Any] = {"project": {"title": project.title,
+                                                  "file": project.source.name if project.source else None},
+                                      "locate": dict(loc), "covariates": {}}  # fmt: skip
+        grids: dict[str, Any] = {}
+        for cov in covs:
+            gname = cov["grid"]
+            if gname not in grids:
+                spec = project.section("grids")[gname]
+                path = Path(spec["path"])
+                path = path if path.is_absolute() else project.root / path
+                grids[gname] = envlink.open_grid(path, variable=spec.get("variable"))
+            options = {k: cov[k] for k in ("stat", "window", "spatial", "baseline", "mmm",
+                                           "time_weights", "min_coverage") if k in cov}  # fmt: skip
+            if isinstance(options.get("mmm"), str):
+                m = Path(options["mmm"])
+                options["mmm"] = str(m if m.is_absolute() else project.root / m)
+            table = envlink.attach(table, grids[gname], name=cov["name"], cache_dir=cache,
+                                   **options)  # fmt: skip
+            stage_prov = dict(table.attrs.get("envlink", {}).get(cov["name"], {}) or {})
+            provenance["covariates"][cov["name"]] = {"grid": gname, **options, **stage_prov}
+            steps.done(f"attach {cov['name']}")
+        eff = project.section("effects")
+        effect, variance = eff.get("name", "effect"), eff.get("variance", "variance")
+        if eff:
+            table = envlink.effect_sizes(table, eff["kind"], name=effect, variance_name=variance,
+                                         **eff.get("columns", {}))  # fmt: skip
+            provenance["effects"] = {k: v for k, v in eff.items()}
+            steps.done("effects")
+        fit, fit_rows, egger = None, 0, None
+        if "model" in project.data:
+            fit, ok, egger = _fit_model(project, table, effect, variance)
+            fit_rows = int(ok.sum())
+            table = table.assign(fit_included=ok)
+            provenance["model"] = dict(project.section("model"))
+            steps.done("model")
+        table.attrs = {}
+        exp = project.section("export")
+        paths = export_table(
+            table, out_dir, formats=exp.get("formats", ["csv", "parquet", "gpkg"]),
+            name=exp.get("name", "enriched"), fit=fit, provenance=provenance,
+            input_columns=input_columns, project_sha256=project.sha256, title=project.title,
+            force=force,
+        )  # fmt: skip
+        steps.done("export")
+        if "report" in targets:
+            moderator = exp.get("moderator")
+            if moderator is None and "model" in project.data:
+                mods = _formula_columns(project.section("model").get("moderators") or "",
+                                        [str(c) for c in table.columns])  # fmt: skip
+                moderator = mods[0] if mods else None
+            field_grid = None
+            for cov in covs:
+                if cov["name"] == moderator or field_grid is None:
+                    field_grid = grids[cov["grid"]]
+            units = {c: v.get("units") for c, v in provenance["covariates"].items() if v.get("units")}
+            paths["report"] = envlink.write_report(
+                targets["report"], table=table, fit=fit, covariates=[c["name"] for c in covs],
+                moderator=moderator, effect=effect, variance=variance, field=field_grid,
+                provenance=provenance, windows_tried=max(1, len(covs)), title=project.title,
+                egger=egger, label=project.section("studies").get("study"), units=units,
+            )  # fmt: skip
+            steps.done("report")
+    finally:
+        steps.close()
+    return RunResult(out=out_dir, table=table, fit=fit, paths=paths, fit_rows=fit_rows,
+                     windows_tried=len(covs), seconds=steps.seconds)  # fmt: skip
+
+
+def _demo_project_dir() -> tuple[Path, tempfile.TemporaryDirectory[str] | None]:
+    """The bundled demo folder, or a fresh regeneration of it when files are missing."""
+    from envlink.demo_grids import DEMO_FILES, data_path
+
+    bundled = data_path("demo.toml").parent
+    if all(data_path(n).is_file() for n in DEMO_FILES):
+        return bundled, None
+    from envlink.demo_grids.generate import generate
+
+    tmp = tempfile.TemporaryDirectory(prefix="envlink-demo-data-")
+    generate(tmp.name)
+    return Path(tmp.name), tmp
+
+
+def run_demo(
+    out: str | os.PathLike[str] = "envlink-demo",
+    *,
+    force: bool = False,
+    progress: bool | None = None,
+) -> RunResult:
+    """Run the bundled invented Vell Archipelago demo (``demo_grids/demo.toml``).
+
+    Works from a plain install: the bundled files are read through
+    :mod:`envlink.demo_grids`; if any is missing they are regenerated with the
+    seeded generator into a temporary folder first.
+
+    Parameters
+    ----------
+    out : path-like, default "envlink-demo"
+        Output folder (relative to the current directory).
+    force : bool, default False
+        Replace existing outputs.
+    progress : bool, optional
+        Show a progress bar on stderr (default: when stderr is a terminal).
+
+    Returns
+    -------
+    RunResult
+    """
+    folder, tmp = _demo_project_dir()
+    try:
+        project = load_project(folder / "demo.toml")
+        return run_project(project, out=Path(out).resolve(), force=force, progress=progress)
+    finally:
+        if tmp is not None:
+            tmp.cleanup()
+
+
+def _summary_lines(result: RunResult) -> list[str]:
+    """Plain-words summary of a run, for the command line."""
+    t = result.table
+    lines = [f"{len(t)} rows read"]
+    if "locate_status" in t:
+        counts = t["locate_status"].astype(str).value_counts()
+        lines.append("located: " + ", ".join(f"{counts.get(k, 0)} {k}"
+                                             for k in ("ok", "flagged", "rejected")))  # fmt: skip
+    if result.fit is not None:
+        d: Mapping[str, Any] = result.fit.to_dict()
+        lines.append(f"model: k = {d.get('k')} rows, method {d.get('method')}, test {d.get('test')}")
+        for c in d.get("coefficients", []):
+            lines.append(f"  {c['term']}: {c['estimate']:.4g} "
+                         f"[{c['ci_low']:.4g}, {c['ci_high']:.4g}], p = {c['p']:.3g}")  # fmt: skip
+    lines.append(f"{result.windows_tried} covariate window(s) tried")
+    return lines
