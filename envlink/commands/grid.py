@@ -1,0 +1,66 @@
+"""The ``envlink grid`` command: explain what a grid file holds, in one screen or as JSON."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from envlink.errors import GridError, InputError
+
+__all__ = ["register", "run"]
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Add the ``grid`` sub-command."""
+    p = subparsers.add_parser(
+        "grid",
+        help="explain what a grid file holds and how envlink reads it",
+        description=(
+            "Explain a gridded raster (netCDF, Zarr, GeoTIFF, or several files combined along "
+            "time): its variables, the axes found and how, the conventions applied on reading, "
+            "the calendar, time coverage, step and gaps, the spatial extent and resolution, the "
+            "fraction of masked cells, the storage chunking, and warnings."
+        ),
+    )
+    p.add_argument("files", nargs="+", metavar="FILE",
+                   help="grid file, Zarr store or glob pattern; several are combined along time")
+    p.add_argument("--var", dest="variable", metavar="NAME", help="the data variable to read")
+    p.add_argument("--json", action="store_true", help="write the description as JSON on stdout")
+    p.add_argument("--lat", metavar="NAME", help="name of the latitude axis, when the file does not say")
+    p.add_argument("--lon", metavar="NAME", help="name of the longitude axis, when the file does not say")
+    p.add_argument("--time", metavar="NAME", help="name of the time axis, when the file does not say")
+    p.add_argument("--static", action="store_true", help="the grid has no time axis (e.g. a climatology)")
+    p.add_argument("--units", metavar="U", help="units of the values (overrides the file)")
+    p.add_argument("--calendar", metavar="C", help="CF calendar of the time axis (overrides the file)")
+    p.add_argument("--band-dates", metavar="DATES",
+                   help="GeoTIFF: comma-separated ISO dates, one per band")
+    p.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Print the description of the grid; bad files and options exit 2 with a message."""
+    from envlink.grids.info import grid_info
+
+    if args.static and args.time:
+        raise InputError("Give either --time NAME or --static, not both.")
+    options = {
+        "lat": args.lat,
+        "lon": args.lon,
+        "time": False if args.static else args.time,
+        "units": args.units,
+        "calendar": args.calendar,
+    }
+    if args.band_dates:
+        options["band_dates"] = [d.strip() for d in args.band_dates.split(",") if d.strip()]
+    source = args.files[0] if len(args.files) == 1 else list(args.files)
+    try:
+        info = grid_info(source, args.variable, **options)
+    except GridError as exc:
+        raise InputError(str(exc)) from None
+    if args.json:
+        json.dump(info.to_dict(), sys.stdout, indent=2, sort_keys=True)
+        sys.stdout.write("\n")
+    else:
+        print(info)
+    return 0

@@ -1,0 +1,273 @@
+"""Open any climate raster (netCDF, Zarr, GeoTIFF, many files, an open xarray object) and normalise it.
+
+The result is envlink's *normalised grid* (see :mod:`envlink.testing`): dims
+``("time", "lat", "lon")`` with latitudes ascending and longitudes ascending in
+[-180, 180), or ``("time", "y", "x")`` with 2-D ``lat``/``lon`` (curvilinear) or 1-D
+projected ``y``/``x`` and ``attrs["crs_wkt"]``; decoded time with ``time_start`` /
+``time_end`` cells; values masked, unpacked and in canonical units; and the
+conventions applied listed in ``attrs["envlink_conventions"]``.
+"""
+
+from __future__ import annotations
+
+import glob as _glob
+import importlib.util
+import json
+import os
+import sys
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+import xarray as xr
+
+from envlink.errors import GridError, InputError
+from envlink.grids.decode import DecodeOptions, normalise_dataset
+from envlink.grids.geotiff import read_geotiff
+from envlink.grids.identity import grid_identity, identity_json, memory_identity
+
+__all__ = ["open_grid", "resolve_paths", "open_raw"]
+
+Source = str | os.PathLike[str] | Sequence[str | os.PathLike[str]] | xr.Dataset | xr.DataArray
+_GLOB_CHARS = set("*?[")
+
+
+def _is_zarr(path: Path) -> bool:
+    if path.suffix.lower() == ".zarr":
+        return True
+    return path.is_dir() and any((path / m).exists() for m in ("zarr.json", ".zgroup", ".zarray", ".zmetadata"))
+
+
+def _is_tiff(path: Path) -> bool:
+    return path.suffix.lower() in (".tif", ".tiff")
+
+
+def resolve_paths(source: str | os.PathLike[str] | Sequence[str | os.PathLike[str]]) -> list[Path]:
+    """Expand a path, a glob pattern or a list of either into sorted existing paths.
+
+    Examples
+    --------
+    >>> resolve_paths([])
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: No grid files given.
+    """
+    items = [source] if isinstance(source, (str, os.PathLike)) else list(source)
+    out: list[Path] = []
+    for item in items:
+        text = os.fspath(item)
+        if _GLOB_CHARS & set(text) and not Path(text).exists():
+            matches = sorted(_glob.glob(os.path.expanduser(text)))
+            if not matches:
+                raise InputError(f"The pattern {text!r} matches no files.")
+            out.extend(Path(m) for m in matches)
+        else:
+            p = Path(text).expanduser()
+            if not p.exists():
+                raise GridError(f"The grid file {text!r} does not exist.")
+            out.append(p)
+    if not out:
+        raise InputError("No grid files given.")
+    return out
+
+
+def _chunks(chunks: Any) -> Any:
+    if isinstance(chunks, str) and chunks == "auto":
+        return "auto" if importlib.util.find_spec("dask") is not None else None
+    return chunks
+
+
+def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> xr.Dataset:
+    """Open a netCDF file or Zarr store without any CF decoding, naming the path on failure."""
+    kwargs: dict[str, Any] = {
+        "decode_cf": False,
+        "mask_and_scale": False,
+        "decode_times": False,
+        "chunks": _chunks(chunks),
+    }
+    if _is_zarr(path):
+        kwargs["engine"] = "zarr"
+    elif engine is not None:
+        kwargs["engine"] = engine
+    try:
+        return xr.open_dataset(path, **kwargs)
+    except Exception as exc:  # noqa: BLE001 - every backend failure means an unreadable file
+        kind = "Zarr store" if _is_zarr(path) else "grid file"
+        raise GridError(
+            f"Cannot open the {kind} {str(path)!r}: {type(exc).__name__}: {exc}. "
+            "It may be truncated, corrupt or not a netCDF/Zarr/GeoTIFF grid."
+        ) from None
+
+
+def _in_memory_identity(ds: xr.Dataset, variable: str) -> dict[str, Any]:
+    source = ds.encoding.get("source") or ds[variable].encoding.get("source")
+    if source and Path(source).exists():
+        return grid_identity(source, variable, attrs=ds[variable].attrs)
+    parts = [np.asarray(ds[c].values).astype(str).ravel() for c in ds[variable].coords if ds[c].ndim <= 2]
+    sample = np.concatenate(parts) if parts else np.array([], dtype=str)
+    return memory_identity(sample, variable, ds[variable].attrs)
+
+
+def _open_one(path: Path, variable: str | None, opts: DecodeOptions, chunks: Any, engine: str | None,
+              band_dates: Sequence[Any] | None, full_hash: bool) -> xr.DataArray:
+    crs_wkt = None
+    if _is_tiff(path):
+        ds, tif_var, crs_wkt = read_geotiff(path, band_dates=band_dates, chunks=_chunks(chunks),
+                                            static=opts.time is False)
+        if variable is not None and variable != tif_var:
+            raise InputError(
+                f"The GeoTIFF {str(path)!r} holds one variable, {tif_var!r}; got variable={variable!r}."
+            )
+        variable = tif_var
+    else:
+        ds = open_raw(path, chunks=chunks, engine=engine)
+    da = normalise_dataset(ds, variable, opts, label=str(path), crs_wkt=crs_wkt)
+    ident = grid_identity(path, da.attrs["envlink_variable"], full_hash=full_hash,
+                          attrs=da.attrs.pop("_raw_attrs"))
+    da.attrs["envlink_identity"] = identity_json(ident)
+    return da
+
+
+def _combine(parts: list[xr.DataArray], paths: list[Path], full_hash: bool) -> xr.DataArray:
+    if parts[0].ndim < 3 or "time" not in parts[0].dims:
+        raise InputError("Several files can only be combined along a time axis; these are static grids.")
+    first = parts[0]
+    for p, da in zip(paths[1:], parts[1:], strict=True):
+        for c in ("lat", "lon", "x", "y"):
+            if c in first.coords and (c not in da.coords or first[c].shape != da[c].shape
+                                      or not np.allclose(first[c].values, da[c].values, rtol=0.0, atol=1e-9)):
+                raise InputError(
+                    f"The file {str(p)!r} has different {c} coordinates from {str(paths[0])!r}; "
+                    "files combined along time must share one spatial grid."
+                )
+        for key in ("units", "calendar", "envlink_variable"):
+            if da.attrs.get(key) != first.attrs.get(key):
+                raise InputError(
+                    f"The file {str(p)!r} has {key} {da.attrs.get(key)!r} but {str(paths[0])!r} has "
+                    f"{first.attrs.get(key)!r}; files combined along time must agree."
+                )
+    order = sorted(range(len(parts)), key=lambda i: parts[i]["time_start"].values[0])
+    parts = [parts[i] for i in order]
+    paths = [paths[i] for i in order]
+    for i in range(1, len(parts)):
+        prev_end = parts[i - 1]["time_end"].values[-1]
+        this_start = parts[i]["time_start"].values[0]
+        if this_start < prev_end:
+            raise InputError(
+                f"The files {str(paths[i - 1])!r} and {str(paths[i])!r} overlap in time (the first "
+                f"ends at {prev_end}, the second starts at {this_start}); remove the duplicate "
+                "steps or pass the files that form one series."
+            )
+    conventions: list[str] = []
+    for da in parts:
+        for note in json.loads(da.attrs["envlink_conventions"]):
+            if note not in conventions:
+                conventions.append(note)
+    conventions.append(f"{len(parts)} files combined along time, sorted by time")
+    attrs = dict(first.attrs)
+    out = xr.concat(parts, dim="time", coords="minimal", compat="override", join="override",
+                    combine_attrs="override")
+    attrs["envlink_conventions"] = json.dumps(conventions)
+    ident = grid_identity(paths, attrs["envlink_variable"], full_hash=full_hash,
+                          attrs=json.loads(first.attrs["envlink_identity"])["attrs"])
+    attrs["envlink_identity"] = identity_json(ident)
+    out.attrs = attrs
+    return out
+
+
+def open_grid(
+    source: Source,
+    variable: str | None = None,
+    *,
+    lat: str | None = None,
+    lon: str | None = None,
+    time: str | Literal[False] | None = None,
+    units: str | None = None,
+    calendar: str | None = None,
+    band_dates: Sequence[Any] | None = None,
+    chunks: Any = "auto",
+    select: Mapping[str, Any] | None = None,
+    engine: str | None = None,
+    full_hash: bool = False,
+) -> xr.DataArray:
+    """Open a gridded raster and return it in envlink's normalised form.
+
+    Parameters
+    ----------
+    source : path, glob pattern, sequence of paths, xarray.Dataset or xarray.DataArray
+        A netCDF file, a Zarr store (directory or ``.zarr``), a GeoTIFF (``.tif``), a
+        list or glob of files combined along time, or an object already open.
+    variable : str, optional
+        The data variable; needed when the file holds more than one.
+    lat, lon, time : str, optional
+        Names of the axes when the file's attributes do not say (see docs/grids.md).
+        ``time=False`` opens a static grid (no time axis): dims ``("lat", "lon")``.
+    units : str, optional
+        The units of the values, overriding (or supplying) the ``units`` attribute.
+    calendar : str, optional
+        The CF calendar of the time axis, overriding (or supplying) the attribute.
+    band_dates : sequence, optional
+        GeoTIFF only: one ISO date, or one ``(start, end)`` pair, per band.
+    chunks : "auto", dict, int or None
+        Dask chunks (``"auto"`` when Dask is installed); ``None`` opens without Dask.
+    select : mapping, optional
+        Values of other dimensions to pick (e.g. ``{"depth": 0.5}``, nearest match).
+    engine : str, optional
+        xarray backend engine for netCDF (default: xarray's choice).
+    full_hash : bool
+        Hash whole files for the identity instead of a sample.
+
+    Returns
+    -------
+    xarray.DataArray
+        The normalised grid (dims, coords and attrs as in :mod:`envlink.testing`).
+
+    Raises
+    ------
+    GridError
+        A missing, unreadable, truncated or corrupt file (the message names it).
+    InputError
+        An unknown variable, an axis that cannot be found, unknown units, bad options.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> ds = xr.Dataset(
+    ...     {"t2m": (("time", "lat", "lon"), np.full((2, 2, 2), 300.0), {"units": "K"})},
+    ...     coords={"time": ("time", [0, 1], {"units": "days since 2000-01-01"}),
+    ...             "lat": [10.0, 0.0], "lon": [90.0, 270.0]})
+    >>> g = open_grid(ds)
+    >>> g.dims, g.lat.values.tolist(), g.lon.values.tolist(), float(g[0, 0, 0])
+    (('time', 'lat', 'lon'), [0.0, 10.0], [-90.0, 90.0], 26.850000000000023)
+    """
+    opts = DecodeOptions(lat=lat, lon=lon, time=time, units=units, calendar=calendar, select=select)
+    if time is not None and time is not False and not isinstance(time, str):
+        raise InputError(f"The 'time' parameter of open_grid must be a name, None or False; got {time!r}.")
+    if isinstance(source, xr.DataArray):
+        name = str(source.name) if source.name is not None else "data"
+        if variable is not None and variable != name:
+            raise InputError(f"The DataArray is named {name!r}; got variable={variable!r}.")
+        source = source.to_dataset(name=name)
+        variable = name
+    if isinstance(source, xr.Dataset):
+        da = normalise_dataset(source, variable, opts, label="the dataset")
+        da.attrs.pop("_raw_attrs")
+        da.attrs["envlink_identity"] = identity_json(
+            _in_memory_identity(source, da.attrs["envlink_variable"])
+        )
+        return da
+    paths = resolve_paths(source)
+    if len(paths) == 1:
+        return _open_one(paths[0], variable, opts, chunks, engine, band_dates, full_hash)
+    if band_dates is not None:
+        raise InputError("band_dates applies to one GeoTIFF; several files were given.")
+    from tqdm.auto import tqdm
+
+    parts = []
+    for p in tqdm(paths, desc="opening grid files", unit="file", file=sys.stderr,
+                  disable=len(paths) < 8, leave=False):
+        parts.append(_open_one(p, variable, opts, chunks, engine, None, full_hash))
+        variable = parts[-1].attrs["envlink_variable"]
+    return _combine(parts, paths, full_hash)
+
