@@ -287,7 +287,8 @@ def _pick(columns: Sequence[str], given: str | None, choices: Sequence[str], wha
 
 
 def _wrap_lon(lon: float) -> float:
-    return float((lon + 180.0) % 360.0 - 180.0)
+    lon = float(lon)
+    return lon if -180.0 <= lon < 180.0 else (lon + 180.0) % 360.0 - 180.0
 
 
 def _entries_from_table(df: pd.DataFrame, source: str, name_col: str | None, lat_col: str | None,

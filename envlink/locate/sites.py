@@ -174,7 +174,8 @@ class _Resolver:
 
     def _from_coordinate(self, value: Any, where: str) -> _Site:
         lon = float(value.lon)
-        lon = (lon + 180.0) % 360.0 - 180.0
+        if not -180.0 <= lon < 180.0:  # the parser promises [-180, 180); make sure of it
+            lon = (lon + 180.0) % 360.0 - 180.0
         return _Site(float(value.lat), lon, float(value.precision_km), None,
                      tuple(value.flags), _explain(value.flags, where))
 
