@@ -368,8 +368,12 @@ def locate(
     >>> import pandas as pd
     >>> t = pd.DataFrame({"lat": ["-8.5", ""], "lon": ["160.25", ""], "when": ["2011", "n.d."]})
     >>> out = locate(t, lat="lat", lon="lon", period="when")
-    >>> out[["site_lat", "period_start", "period_end", "locate_status"]].to_dict("list")
-    {'site_lat': [-8.5, nan], 'period_start': ['2011-01-01', <NA>], 'period_end': ['2011-12-31', <NA>], 'locate_status': ['ok', 'rejected']}
+    >>> out["locate_status"].tolist()
+    ['ok', 'rejected']
+    >>> float(out.loc[0, "site_lat"]), str(out.loc[0, "period_start"]), str(out.loc[0, "period_end"])
+    (-8.5, '2011-01-01', '2011-12-31')
+    >>> out.loc[1, "locate_flags"]
+    'site_missing;period_missing'
     """
     cols: dict[str, str | None] = {
         "lat": lat, "lon": lon, "coords": coords, "site": site,
