@@ -212,7 +212,15 @@ class _Reader:
         point = read_point(norm, order=order, text=self.raw, field=self.field)
         if point is None:
             return None
-        first, last = point_window(point, self.raw, self.field)
+        try:
+            first, last = point_window(point, self.raw, self.field)
+        except PeriodError as err:
+            m = re.fullmatch(r"(\d{2})(\d{2})-(\d{2})", norm)
+            if m is None or int(m.group(3)) <= 12 or int(m.group(3)) <= int(m.group(2)):
+                raise
+            years = f"{m.group(1)}{m.group(2)}-{m.group(1)}{m.group(3)}"
+            raise self.fail(f"{err.reason}; for the years {years.replace('-', ' to ')} write {years}",
+                            "impossible_date") from None
         return Period(first, last, _precision([point.unit], first, last), ())
 
     def _range(self, norm: str, order: Order | None) -> Period | None:

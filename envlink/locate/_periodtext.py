@@ -257,10 +257,7 @@ def check_date(year: int, month: int, day: int, text: str, field: str) -> dt.dat
     if year < 1:
         raise PeriodError(field, f"year {year} is outside the calendar (years run 1-9999)", "impossible_date", text)
     if not 1 <= month <= 12:
-        reason = f"month {month} does not exist (months run 1-12)"
-        if len(str(month)) == 2 and month > year % 100:
-            reason += f"; for the years {year} to {year // 100 * 100 + month} write {year}-{year // 100 * 100 + month}"
-        raise PeriodError(field, reason, "impossible_date", text)
+        raise PeriodError(field, f"month {month} does not exist (months run 1-12)", "impossible_date", text)
     length = calendar.monthrange(year, month)[1]
     if not 1 <= day <= length:
         iso = f"{year:04d}-{month:02d}-{day:02d}"
