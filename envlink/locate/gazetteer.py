@@ -260,7 +260,13 @@ class Gazetteer:
         elif method == "fuzzy":
             flags.insert(0, "site_name_fuzzy")
             notes.append(f"site {query!r}: matched {entry.name!r} by spelling (score {score:.0f}).")
-        if entry.flags:
+        if "polygon_spans_antimeridian" in entry.flags:
+            notes.append(
+                f"site {query!r}: the polygon of {entry.name!r} spans more than 180° of longitude; "
+                "it was kept as given, but a region crossing ±180° must be split there into a "
+                "MultiPolygon to mean the small region."
+            )
+        elif entry.flags:
             notes.append(
                 f"site {query!r}: the gazetteer's coordinates for {entry.name!r} were "
                 f"flagged {', '.join(entry.flags)}."
@@ -390,7 +396,12 @@ def _entries_from_geo(gdf: Any, source: str, name_col: str | None, precision_col
             point = geom.representative_point()
             area, _ = geod.geometry_area_perimeter(geom)
             radius = math.sqrt(abs(area) / math.pi) / 1000.0
-            entries.append(_Entry(site, float(point.y), _wrap_lon(point.x), geom.wkt, radius, ()))
+            # a part wider than half the globe: most likely a region drawn across ±180° as one
+            # ring (a MultiPolygon split at ±180° has narrow parts and is fine)
+            parts = getattr(geom, "geoms", [geom])
+            widest = max(p.bounds[2] - p.bounds[0] for p in parts)
+            wide = ("polygon_spans_antimeridian",) if widest > 180.0 else ()
+            entries.append(_Entry(site, float(point.y), _wrap_lon(point.x), geom.wkt, radius, wide))
         else:
             raise InputError(
                 f"{where} (site {site!r}): a {kind} is not a site; expected points or polygons."

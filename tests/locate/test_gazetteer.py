@@ -187,3 +187,16 @@ def test_explicit_column_names() -> None:
     df = pd.DataFrame({"ref": ["Quill Reef"], "northing": ["-6.5"], "easting": ["155.5"]})
     m = read_gazetteer(df, name_col="ref", lat_col="northing", lon_col="easting").match("Quill Reef")
     assert (m.lat, m.lon) == (-6.5, 155.5)
+
+
+def test_polygon_drawn_across_the_antimeridian_is_kept_but_flagged() -> None:
+    ring = Polygon([(179.5, -17.0), (-179.5, -17.0), (-179.5, -16.0), (179.5, -16.0)])
+    split = shapely.MultiPolygon([_square(179.5, -17.0, 0.5), _square(-180.0, -17.0, 0.5)])
+    g = read_gazetteer(gpd.GeoDataFrame({"name": ["Wide", "Split"]}, geometry=[ring, split], crs="EPSG:4326"))
+    wide = g.match("Wide")
+    assert wide.flags == ("polygon_spans_antimeridian",) and shapely.from_wkt(wide.wkt).equals(ring)
+    good = g.match("Split")
+    assert good.flags == ()
+    # the split region is 1° x 1°: same equal-area radius as one cell there (pyproj Geod reference)
+    area, _ = Geod(ellps="WGS84").geometry_area_perimeter(_square(10.0, -17.0, 1.0))
+    assert_allclose(good.precision_km, math.sqrt(abs(area) / math.pi) / 1000, rtol=1e-9)
