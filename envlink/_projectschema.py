@@ -22,6 +22,7 @@ EFFECT_KINDS = (
     "logit_proportion", "arcsine_proportion", "log_odds_ratio", "log_risk_ratio", "hedges_g",
     "log_response_ratio", "fisher_z", "ln_vr", "ln_cvr",
 )  # fmt: skip
+ZERO_CELLS = ("zero_rows", "all_rows", "none")
 METHODS = ("REML", "ML", "DL", "PM", "HE", "SJ")
 TESTS = ("z", "knapp-hartung")
 FORMATS = ("csv", "parquet", "gpkg")
@@ -109,6 +110,11 @@ SECTIONS: dict[str, dict[str, KeySpec]] = {
         "variance": KeySpec("str", "the variance column to add (default 'variance')"),
         "columns": KeySpec("table", "a table of role = column name (e.g. events = 'diseased')",
                            check=lambda v: all(isinstance(c, str) for c in v.values())),
+        "correction": KeySpec("number", "a continuity correction >= 0 (count kinds)",
+                              check=lambda v: v >= 0),
+        "zero_cells": KeySpec("str", _words(ZERO_CELLS), check=_in(ZERO_CELLS)),
+        "exact": KeySpec("bool", "true or false (hedges_g: exact small-sample factor J)"),
+        "bias_correction": KeySpec("bool", "true or false (log_response_ratio)"),
     },
     "model": {
         "moderators": KeySpec("str", "a moderator formula such as 'sst_anom + depth'"),

@@ -243,6 +243,11 @@ class _Steps:
         self.bar.close()
 
 
+def _label_columns(model: Mapping[str, Any]) -> set[str]:
+    """Columns the model uses as labels (kept as text)."""
+    return {model[k] for k in ("nested", "cluster") if k in model}
+
+
 def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str):
     import envlink
 
@@ -267,9 +272,15 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
             f"{_where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
             f"and every moderator ({', '.join(needed)}); the model needs at least 3."
         )
+    data = table.loc[ok].reset_index(drop=True)
+    for col in needed:  # numbers read as text from the studies table become numbers
+        if not pd.api.types.is_numeric_dtype(data[col].dtype) and col not in _label_columns(model):
+            numbers = pd.to_numeric(data[col], errors="coerce")
+            if numbers.notna().all():
+                data[col] = numbers.astype(np.float64)
     options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
     reg = envlink.MetaRegression(moderators=formula, **options)
-    fit = reg.fit(table.loc[ok].reset_index(drop=True), effect=effect, variance=variance)
+    fit = reg.fit(data, effect=effect, variance=variance)
     used = table.loc[ok]
     egger = envlink.egger_test(pd.to_numeric(used[effect]).to_numpy(dtype=float),
                                pd.to_numeric(used[variance]).to_numpy(dtype=float))  # fmt: skip
@@ -373,8 +384,13 @@ def run_project(
         eff = project.section("effects")
         effect, variance = eff.get("name", "effect"), eff.get("variance", "variance")
         if eff:
-            table = envlink.effect_sizes(table, eff["kind"], name=effect, variance_name=variance,
-                                         **eff.get("columns", {}))  # fmt: skip
+            extra = {k: eff[k] for k in ("correction", "zero_cells", "exact", "bias_correction")
+                     if k in eff}  # fmt: skip
+            try:
+                table = envlink.effect_sizes(table, eff["kind"], name=effect, variance_name=variance,
+                                             **extra, **eff.get("columns", {}))  # fmt: skip
+            except (InputError, TypeError) as exc:
+                raise InputError(f"{_where(project, 'effects', 'columns')}: {exc}") from exc
             provenance["effects"] = {k: v for k, v in eff.items()}
             steps.done("effects")
         fit, fit_rows, egger = None, 0, None
