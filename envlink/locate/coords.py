@@ -232,13 +232,19 @@ def _parse_pair(s: str) -> Coordinate:
     if labelled is not None:
         return labelled
     for tier in _split_candidates(s):
-        outcomes = [o for o in (_try_split(a, b) for a, b in tier) if o is not None]
-        found = {o for o in outcomes if isinstance(o, Coordinate)}
+        found: dict[Coordinate, tuple[str, str]] = {}
+        errors: list[CoordinateError] = []
+        for a, b in tier:
+            outcome = _try_split(a, b)
+            if isinstance(outcome, Coordinate):
+                found.setdefault(outcome, (a, b))
+            elif outcome is not None:
+                errors.append(outcome)
         if len(found) == 1:
-            return found.pop()
+            return next(iter(found))
         if len(found) > 1:
             readings = " or ".join(
-                f"({c.lat:g}, {c.lon:g})" for c in sorted(found, key=lambda c: (c.lat, c.lon))
+                f"{a!r} + {b!r} = ({c.lat:.6g}, {c.lon:.6g})" for c, (a, b) in found.items()
             )
             raise CoordinateError(
                 "coords",
@@ -246,8 +252,8 @@ def _parse_pair(s: str) -> Coordinate:
                 "add a separator (',' or ';'), symbols (° ' \") or hemisphere letters",
                 "ambiguous_coordinate",
             )
-        if outcomes:
-            raise outcomes[0]  # type: ignore[misc]  # only errors are left
+        if errors:
+            raise errors[0]
     try:
         read_angle(s, "coords")
     except CoordinateError:
