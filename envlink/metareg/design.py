@@ -1,0 +1,326 @@
+"""Design matrices for the meta-regression: formulas through formulaic, or plain arrays.
+
+The design keeps the moderator columns apart from the intercept (which the sums
+imply), so a huge array given by the user is never copied to add a column of ones.
+Rows with a missing effect, variance or moderator are dropped, counted and named;
+a non-positive or infinite variance is an error naming the row.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from envlink._util import did_you_mean
+from envlink.errors import InputError, ModelError
+
+__all__ = ["Design", "design_from_frame", "design_from_arrays", "new_rows", "INTERCEPT"]
+
+#: name of the intercept term in every output
+INTERCEPT = "intercept"
+
+_CHECK_BLOCK = 1 << 18
+
+
+@dataclass
+class Design:
+    """Effects, variances and moderators ready for fitting.
+
+    ``X`` holds the moderator columns only (``k × m``); ``intercept`` says whether a
+    leading column of ones is implied. ``labels`` are the row labels kept (index
+    labels of a DataFrame, or positions), ``groups`` the extra columns asked for
+    (nested / cluster), aligned with the kept rows.
+    """
+
+    y: Any
+    v: Any
+    X: Any
+    intercept: bool
+    names: list[str]
+    labels: np.ndarray | None
+    n_dropped: int = 0
+    dropped_labels: list[Any] = field(default_factory=list)
+    spec: Any = None
+    groups: dict[str, np.ndarray] = field(default_factory=dict)
+    keep: np.ndarray | None = None  # mask over the input rows (None: every row kept)
+    all_labels: np.ndarray | None = None  # labels of every input row, in order
+
+    @property
+    def k(self) -> int:
+        return int(self.y.shape[0])
+
+    @property
+    def p(self) -> int:
+        return self.X.shape[1] + (1 if self.intercept else 0)
+
+    def dense(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return float64 NumPy ``(y, v, X_full)`` with the intercept column (small k only)."""
+        y = np.asarray(self.y, dtype=np.float64)
+        v = np.asarray(self.v, dtype=np.float64)
+        X = np.asarray(self.X, dtype=np.float64)
+        if self.intercept:
+            X = np.column_stack([np.ones(y.shape[0]), X])
+        return y, v, X
+
+
+def _formula_text(moderators: str | None, intercept: bool) -> str:
+    rhs = (moderators or "").strip()
+    if not rhs:
+        return "1" if intercept else "0"
+    return rhs if intercept else f"0 + {rhs}"
+
+
+def design_from_frame(data: pd.DataFrame, *, effect: str, variance: str,
+                      moderators: str | None, intercept: bool,
+                      extra: dict[str, str | None]) -> Design:
+    """Build a :class:`Design` from a DataFrame and a formula.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"e": [0.1, 0.3, None, 0.2], "v": [0.01, 0.02, 0.01, 0.03],
+    ...                    "x": [1.0, 2.0, 3.0, 4.0]})
+    >>> d = design_from_frame(df, effect="e", variance="v", moderators="x",
+    ...                       intercept=True, extra={})
+    >>> d.k, d.names, d.n_dropped
+    (3, ['intercept', 'x'], 1)
+    """
+    from formulaic import Formula, model_matrix
+    from formulaic.errors import FormulaicError
+
+    if not isinstance(data, pd.DataFrame):
+        raise InputError(f"fit(data=...) must be a pandas DataFrame; got {type(data).__name__}.")
+    text = _formula_text(moderators, intercept)
+    try:
+        formula = Formula(text)
+        needed = sorted(str(n) for n in formula.required_variables)
+    except FormulaicError as exc:
+        raise InputError(f"Cannot parse the moderator formula {moderators!r}: {exc}") from None
+    wanted = [effect, variance, *needed, *[c for c in extra.values() if c]]
+    for col in wanted:
+        if col not in data.columns:
+            raise InputError(
+                f"Column {col!r} is not in the table." + did_you_mean(col, data.columns)
+                + f" Available columns: {', '.join(map(str, data.columns))}."
+            )
+    y = _numeric(data[effect], effect)
+    v = _numeric(data[variance], variance)
+    missing = y.isna() | v.isna()
+    for col in needed:
+        missing |= data[col].isna()
+    for col in [c for c in extra.values() if c]:
+        missing |= data[col].isna()
+    keep = ~missing.to_numpy()
+    sub = data.loc[keep]
+    yk = y.to_numpy(dtype=np.float64)[keep]
+    vk = v.to_numpy(dtype=np.float64)[keep]
+    labels = np.asarray(data.index)[keep]
+    _check_variances(vk, labels, variance)
+    _check_finite(yk, labels, effect)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            mm = model_matrix(text, sub, na_action="raise")
+    except FormulaicError as exc:
+        raise InputError(f"Cannot build the moderators from {moderators!r}: {exc}") from None
+    except Warning as exc:
+        raise InputError(f"Cannot build the moderators from {moderators!r}: {exc}") from None
+    cols = [str(c) for c in mm.columns]
+    has_int = "Intercept" in cols
+    Xdf = pd.DataFrame(np.asarray(mm, dtype=np.float64), columns=cols)
+    if has_int:
+        Xdf = Xdf.drop(columns="Intercept")
+    X = Xdf.to_numpy(dtype=np.float64)
+    for j, name in enumerate(Xdf.columns):
+        bad = ~np.isfinite(X[:, j])
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(
+                f"Moderator term {name!r} is not finite in row {labels[i]!r} "
+                f"(value {X[i, j]!r}); check the columns used by {moderators!r}."
+            )
+    names = ([INTERCEPT] if has_int else []) + list(Xdf.columns)
+    dropped = list(np.asarray(data.index)[~keep])
+    groups = {role: sub[col].to_numpy() for role, col in extra.items() if col}
+    return Design(yk, vk, X, has_int, names, labels, len(dropped), dropped, mm.model_spec, groups,
+                  keep, np.asarray(data.index))
+
+
+def _numeric(s: pd.Series, name: str) -> pd.Series:
+    out = pd.to_numeric(s, errors="coerce")
+    bad = out.isna() & s.notna() & (s.astype(str).str.strip() != "")
+    if bad.any():
+        i = bad.to_numpy().nonzero()[0][0]
+        raise InputError(
+            f"Column {name!r} must hold numbers; row {s.index[i]!r} holds {s.iloc[i]!r}."
+        )
+    return out.astype(np.float64)
+
+
+def _check_variances(v: np.ndarray, labels: np.ndarray | None, name: str) -> None:
+    bad = ~(np.isfinite(v) & (v > 0))
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        where = labels[i] if labels is not None else i
+        raise ModelError(
+            f"Sampling variance {name!r} must be positive and finite; row {where!r} has "
+            f"{v[i]!r} ({int(bad.sum())} such row(s)). Fix or remove these rows; a zero "
+            "variance usually means a zero cell that needs a continuity correction."
+        )
+
+
+def _check_finite(y: np.ndarray, labels: np.ndarray | None, name: str) -> None:
+    bad = ~np.isfinite(y)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        where = labels[i] if labels is not None else i
+        raise ModelError(f"Effect {name!r} must be finite; row {where!r} has {y[i]!r}.")
+
+
+def _is_dask(a: object) -> bool:
+    return type(a).__module__.startswith("dask")
+
+
+def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
+                       groups: dict[str, Any] | None = None) -> Design:
+    """Build a :class:`Design` from arrays (NumPy or Dask), checking them in blocks.
+
+    ``X`` holds the moderator columns (``None`` for none). Rows with NaN in any
+    array are dropped and counted; a non-positive variance is a
+    :class:`~envlink.errors.ModelError`. Arrays are not copied unless rows must be
+    dropped.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> d = design_from_arrays([0.1, 0.2, np.nan], [0.1, 0.1, 0.1], None, intercept=True)
+    >>> d.k, d.p, d.n_dropped
+    (2, 1, 1)
+    """
+    dask_in = _is_dask(y) or _is_dask(v) or _is_dask(X)
+    if dask_in:
+        return _dask_design(y, v, X, intercept=intercept)
+    names: list[str] | None = None
+    if isinstance(X, pd.DataFrame):
+        names = [str(c) for c in X.columns]
+    y = np.asarray(y)
+    v = np.asarray(v)
+    if y.dtype.kind not in "fiu" or v.dtype.kind not in "fiu":
+        raise InputError("y and v must be numeric arrays.")
+    if y.ndim != 1 or v.shape != y.shape:
+        raise InputError(f"y and v must be 1-D arrays of one length; got shapes {y.shape} and {v.shape}.")
+    k = y.shape[0]
+    X = np.zeros((k, 0)) if X is None else np.asarray(X)
+    if X.ndim == 1:
+        X = X[:, None]
+    if X.shape[0] != k:
+        raise InputError(f"X must have one row per effect ({k}); got {X.shape[0]} rows.")
+    if X.dtype.kind not in "fiu":
+        raise InputError("X must be a numeric matrix; use a formula for categorical moderators.")
+    if y.dtype.kind in "iu":
+        y = y.astype(np.float64)
+    if v.dtype.kind in "iu":
+        v = v.astype(np.float64)
+    if X.dtype.kind in "iu":
+        X = X.astype(np.float64)
+    names = names or [f"x{j + 1}" for j in range(X.shape[1])]
+    nan_rows: list[np.ndarray] = []
+    for lo in range(0, k, _CHECK_BLOCK):
+        sl = slice(lo, lo + _CHECK_BLOCK)
+        nan = np.isnan(y[sl]) | np.isnan(v[sl])
+        if X.shape[1]:
+            nan |= np.isnan(X[sl]).any(axis=1)
+        if nan.any():
+            nan_rows.append(np.flatnonzero(nan) + lo)
+        vb = v[sl]
+        bad = ~nan & ~(np.isfinite(vb) & (vb > 0))
+        if bad.any():
+            _check_variances(vb[~nan], np.flatnonzero(~nan) + lo, "v")
+        ok = ~nan
+        if not np.isfinite(y[sl][ok]).all():
+            _check_finite(y[sl][ok], np.flatnonzero(ok) + lo, "y")
+        if X.shape[1] and not np.isfinite(X[sl][ok]).all():
+            i = int(np.flatnonzero(ok & ~np.isfinite(X[sl]).all(axis=1))[0]) + lo
+            raise InputError(f"Moderator matrix X is infinite in row {i}.")
+    dropped = np.concatenate(nan_rows) if nan_rows else np.zeros(0, dtype=np.int64)
+    labels = None
+    keep = None
+    gr = {r: np.asarray(g) for r, g in (groups or {}).items() if g is not None}
+    for r, g in gr.items():
+        if g.shape != (k,):
+            raise InputError(f"{r}= must hold one label per effect ({k}); got shape {g.shape}.")
+    if dropped.size:
+        keep = np.ones(k, dtype=bool)
+        keep[dropped] = False
+        y, v, X = y[keep], v[keep], X[keep]
+        labels = np.flatnonzero(keep)
+        gr = {r: g[keep] for r, g in gr.items()}
+    full = ([INTERCEPT] if intercept else []) + names
+    return Design(y, v, X, intercept, full, labels, int(dropped.size), dropped.tolist(), None, gr,
+                  keep, np.arange(k))
+
+
+def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool) -> Design:
+    import dask
+    import dask.array as da
+
+    y = da.asarray(y)
+    if y.ndim != 1:
+        raise InputError(f"y must be 1-D; got shape {y.shape}.")
+    v = da.asarray(v).rechunk(y.chunks)
+    k = y.shape[0]
+    X = da.zeros((k, 0), chunks=(y.chunks[0], 0)) if X is None else da.asarray(X)
+    if X.ndim == 1:
+        X = X[:, None]
+    X = X.rechunk((y.chunks[0], X.shape[1]))
+    nan = da.isnan(y) | da.isnan(v)
+    if X.shape[1]:
+        nan = nan | da.isnan(X).any(axis=1)
+    badv = ~nan & ~(da.isfinite(v) & (v > 0))
+    n_nan, n_bad = dask.compute(nan.sum(), badv.sum())
+    if int(n_bad):
+        i = int(da.argmax(badv).compute())
+        raise ModelError(
+            f"Sampling variance 'v' must be positive and finite; row {i} has "
+            f"{float(v[i].compute())!r} ({int(n_bad)} such row(s))."
+        )
+    names = [f"x{j + 1}" for j in range(X.shape[1])]
+    full = ([INTERCEPT] if intercept else []) + names
+    dropped: list[int] = []
+    if int(n_nan):
+        keepm = ~nan
+        dropped = np.flatnonzero(nan.compute()).tolist()
+        y, v, X = y[keepm], v[keepm], X[keepm]
+        y, v, X = (a.compute_chunk_sizes() for a in (y, v, X))
+    return Design(y, v, X, intercept, full, None, len(dropped), dropped, None, {})
+
+
+def new_rows(design_spec: Any, newdata: Any, *, intercept: bool, m: int) -> np.ndarray:
+    """Moderator rows (with the intercept column) for :meth:`MetaRegression.predict`."""
+    if design_spec is not None:
+        if not isinstance(newdata, pd.DataFrame):
+            raise InputError("This model was fitted from a formula; pass predict() a DataFrame.")
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("error")
+                mm = design_spec.get_model_matrix(newdata, na_action="raise")
+        except Exception as exc:  # formulaic raises several types and warnings
+            raise InputError(f"Cannot build moderators for predict(): {exc}") from None
+        cols = [str(c) for c in mm.columns]
+        arr = np.asarray(mm, dtype=np.float64)
+        if "Intercept" in cols:
+            j = cols.index("Intercept")
+            arr = np.column_stack([arr[:, j], np.delete(arr, j, axis=1)])
+        return arr
+    Xn = np.zeros((1, 0)) if newdata is None else np.asarray(newdata, dtype=np.float64)
+    if Xn.ndim == 1:
+        Xn = Xn[None, :] if m > 1 or Xn.shape[0] == 0 else Xn[:, None]
+    if Xn.shape[1] != m:
+        raise InputError(f"predict() needs {m} moderator column(s); got {Xn.shape[1]}.")
+    if intercept:
+        Xn = np.column_stack([np.ones(Xn.shape[0]), Xn])
+    return Xn

@@ -1,0 +1,340 @@
+"""Tests for meta-regression coefficients: z / Knapp-Hartung, CR2 cluster-robust, permutation.
+
+Formulas and citations are in docs/methods.md: Knapp & Hartung (2003); Hedges,
+Tipton & Johnson (2010) with the CR2 correction and Satterthwaite degrees of
+freedom of Tipton (2015); Higgins & Thompson (2004) for permutation tests.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from envlink.errors import ModelError
+
+__all__ = [
+    "knapp_hartung_scale",
+    "wald",
+    "coef_table",
+    "RobustFit",
+    "cluster_robust",
+    "PermutationResult",
+    "permutation_test",
+    "run_permutations",
+    "leave_one_out",
+    "standardized_residuals",
+    "cooks_distance",
+]
+
+
+def knapp_hartung_scale(yPy: float, k: int, p: int, truncate: bool = False) -> float:
+    """Knapp-Hartung scale ``q = y'Py / (k - p)``, optionally ``max(1, q)``.
+
+    Examples
+    --------
+    >>> knapp_hartung_scale(4.0, 10, 2), knapp_hartung_scale(4.0, 10, 2, truncate=True)
+    (0.5, 1.0)
+    """
+    q = yPy / (k - p)
+    return max(1.0, q) if truncate else q
+
+
+def wald(beta: np.ndarray, vcov: np.ndarray, idx: Sequence[int]) -> float:
+    """Wald statistic ``b_Sᵀ V_SS⁻¹ b_S`` for the coefficients ``idx``."""
+    idx = list(idx)
+    if not idx:
+        return float("nan")
+    b = beta[idx]
+    V = vcov[np.ix_(idx, idx)]
+    return float(b @ np.linalg.solve(V, b))
+
+
+def coef_table(names: Sequence[str], beta: np.ndarray, se: np.ndarray,
+               df: np.ndarray | None, level: float) -> pd.DataFrame:
+    """Coefficient table: estimate, se, statistic, p, ci_low, ci_high, df (z when df is None)."""
+    stat = beta / se
+    a = 1.0 - (1.0 - level) / 2.0
+    if df is None:
+        p = 2.0 * stats.norm.sf(np.abs(stat))
+        crit = np.full(beta.shape, stats.norm.ppf(a))
+        dfo = np.full(beta.shape, np.nan)
+    else:
+        dfo = np.asarray(df, dtype=np.float64)
+        p = 2.0 * stats.t.sf(np.abs(stat), dfo)
+        crit = stats.t.ppf(a, dfo)
+    return pd.DataFrame({
+        "term": list(names), "estimate": beta, "se": se, "statistic": stat, "p": p,
+        "ci_low": beta - crit * se, "ci_high": beta + crit * se, "df": dfo,
+    })
+
+
+@dataclass
+class RobustFit:
+    """Cluster-robust covariance and per-coefficient Satterthwaite degrees of freedom."""
+
+    vcov: np.ndarray
+    df: np.ndarray
+    n_clusters: int
+    kind: str
+
+
+def _sym_pow(M: np.ndarray, power: float) -> np.ndarray:
+    vals, vecs = np.linalg.eigh((M + M.T) / 2.0)
+    if vals.min() <= 1e-12 * max(1.0, vals.max()):
+        raise ModelError(
+            "CR2 adjustment undefined: a cluster is fully determined by the moderators "
+            "(I - H_jj is singular). Use fewer moderators or larger clusters."
+        )
+    return (vecs * vals**power) @ vecs.T
+
+
+def cluster_robust(X: np.ndarray, e: np.ndarray, phi_blocks: list[np.ndarray],
+                   rows: list[np.ndarray], kind: str = "CR2") -> RobustFit:
+    """Cluster-robust covariance (CR0, CR1 or CR2) with Satterthwaite df for each coefficient.
+
+    Parameters
+    ----------
+    X : (k, p) array
+        The full design (with the intercept column).
+    e : (k,) array
+        Residuals ``y - X b`` of the fitted model.
+    phi_blocks : list of arrays
+        The working covariance ``Φ_j`` of each cluster's rows (the model-implied
+        marginal covariance; its inverse gives the weights).
+    rows : list of integer arrays
+        The row positions of each cluster, in the order of ``phi_blocks``.
+    kind : {"CR2", "CR1", "CR0"}
+
+    Returns
+    -------
+    RobustFit
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> X = np.ones((4, 1)); e = np.array([1.0, -1.0, 2.0, -2.0])
+    >>> r = cluster_robust(X, e, [np.eye(2), np.eye(2)], [np.array([0, 1]), np.array([2, 3])],
+    ...                    kind="CR0")
+    >>> float(r.vcov[0, 0])
+    0.0
+    """
+    k, p = X.shape
+    J = len(rows)
+    if J < 2:
+        raise ModelError("Cluster-robust standard errors need at least 2 clusters.")
+    Wj = [np.linalg.inv(P) for P in phi_blocks]
+    XWX = sum(X[r].T @ W @ X[r] for r, W in zip(rows, Wj, strict=True))
+    M = np.linalg.inv(XWX)
+    meat = np.zeros((p, p))
+    Pmats = []  # p_j columns for every coefficient: A_jᵀ W_j X_j M  (n_j × p)
+    for r, W, Phi in zip(rows, Wj, phi_blocks, strict=True):
+        Xj = X[r]
+        if kind == "CR2":
+            ph_half = _sym_pow(Phi, 0.5)
+            ph_mhalf = _sym_pow(Phi, -0.5)
+            Bj = np.eye(len(r)) - ph_mhalf @ Xj @ M @ Xj.T @ ph_mhalf
+            Aj = ph_half @ _sym_pow(Bj, -0.5) @ ph_mhalf
+        else:
+            Aj = np.eye(len(r))
+        Pj = Aj.T @ W @ Xj @ M
+        Pmats.append(Pj)
+        u = Pj.T @ e[r]
+        meat += np.outer(u, u)
+    V = meat
+    if kind == "CR1":
+        V = V * (J / (J - 1)) * ((k - 1) / (k - p))
+    # Satterthwaite df under the working model: Ω = Φ - X M Xᵀ (Tipton 2015)
+    df = np.empty(p)
+    for c in range(p):
+        d = np.array([Pj[:, c] @ Phi @ Pj[:, c] for Pj, Phi in zip(Pmats, phi_blocks, strict=True)])
+        U = np.array([X[r].T @ Pj[:, c] for r, Pj in zip(rows, Pmats, strict=True)])  # J × p
+        h = np.einsum("ip,pq,iq->i", U, M, U)
+        S = U.T @ U
+        ev = float(np.sum(d) - np.sum(h))
+        sq = float(np.sum(d**2) - 2.0 * np.sum(d * h) + np.trace(M @ S @ M @ S))
+        df[c] = ev**2 / sq if sq > 0 else np.nan
+    return RobustFit(V, df, J, kind)
+
+
+@dataclass
+class PermutationResult:
+    """Permutation p-values for the omnibus moderator test and each moderator coefficient."""
+
+    n_permutations: int
+    seed: int | None
+    Q_M: float
+    Q_M_p: float
+    coefficients: pd.DataFrame  # term, statistic, p
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe dictionary."""
+        return {
+            "n_permutations": self.n_permutations, "seed": self.seed, "Q_M": self.Q_M,
+            "Q_M_p": self.Q_M_p,
+            "coefficients": [
+                {"term": t, "statistic": float(s), "p": float(p)}
+                for t, s, p in self.coefficients[["term", "statistic", "p"]].itertuples(index=False)
+            ],
+        }
+
+
+def permutation_test(refit: Callable[[np.ndarray], tuple[float, np.ndarray]], k: int,
+                     observed: tuple[float, np.ndarray], terms: Sequence[str],
+                     n_permutations: int, seed: int | None,
+                     progress: bool = True) -> PermutationResult:
+    """Permutation distribution of Q_M and coefficient statistics (Higgins & Thompson 2004).
+
+    ``refit(perm)`` refits the model with the moderator rows reordered by ``perm``
+    and returns ``(Q_M, statistics)`` for the tested coefficients. The p-value counts
+    the observed arrangement among the permutations: ``(1 + #{|T*| >= |T|}) / (1 + n)``.
+    """
+    from tqdm.auto import tqdm
+
+    if n_permutations < 1:
+        raise ModelError(f"n_permutations must be at least 1; got {n_permutations}.")
+    rng = np.random.default_rng(seed)
+    q_obs, t_obs = observed
+    t_obs = np.abs(np.asarray(t_obs, dtype=np.float64))
+    ge_q = 0
+    ge_t = np.zeros_like(t_obs)
+    eps = 1e-12
+    for _ in tqdm(range(n_permutations), desc="permutations", disable=not progress,
+                  leave=False):
+        q, t = refit(rng.permutation(k))
+        ge_q += q >= q_obs * (1 - eps)
+        ge_t += np.abs(t) >= t_obs * (1 - eps)
+    pq = (1 + ge_q) / (1 + n_permutations)
+    pt = (1 + ge_t) / (1 + n_permutations)
+    table = pd.DataFrame({"term": list(terms), "statistic": np.asarray(observed[1]), "p": pt})
+    return PermutationResult(n_permutations, seed, float(q_obs), float(pq), table)
+
+
+# ------------------------------------------------------------------ model-based diagnostics
+def _clone(model: Any) -> Any:
+    return type(model)(**model.get_params())
+
+
+def _subset(d: Any, rows: np.ndarray, *, permute_x: np.ndarray | None = None) -> Any:
+    from envlink.metareg.design import Design
+
+    y = np.asarray(d.y, dtype=np.float64)[rows]
+    v = np.asarray(d.v, dtype=np.float64)[rows]
+    X = np.asarray(d.X, dtype=np.float64)
+    X = X[permute_x] if permute_x is not None else X[rows]
+    groups = {r: np.asarray(g)[rows] for r, g in d.groups.items()}
+    return Design(y, v, X, d.intercept, list(d.names), None, 0, [], d.spec, groups)
+
+
+def _row_index(model: Any) -> pd.Index:
+    d = model._design
+    return pd.Index(d.labels if d.labels is not None else np.arange(d.k))
+
+
+def _full_rows(model: Any, frame: pd.DataFrame) -> pd.DataFrame:
+    """Put every input row back (dropped rows as missing, flagged in ``dropped``)."""
+    d = model._design
+    if not d.n_dropped or d.keep is None:
+        return frame.assign(dropped=False)
+    full = pd.DataFrame(np.nan, index=np.arange(d.keep.shape[0]), columns=frame.columns)
+    full.loc[np.flatnonzero(d.keep), :] = frame.to_numpy()
+    full.index = pd.Index(d.all_labels)
+    return full.assign(dropped=~d.keep)
+
+
+def standardized_residuals(model: Any) -> pd.DataFrame:
+    """Residuals ``e_i = y_i - x_iᵀ b`` over ``sqrt(Var e_i)``, ``Var e = diag(Φ - X (XᵀWX)⁻¹ Xᵀ)``.
+
+    ``Φ`` is the fitted marginal covariance (``v_i + tau²``, or the multilevel
+    blocks); the model-based covariance of ``b`` is used whatever the test.
+    """
+    d = model._design
+    y, v, Xf = d.dense()
+    e = y - Xf @ model.coef_
+    h = np.einsum("ij,jk,ik->i", Xf, model._vcov_model, Xf)
+    var = v + model.tau2_ - h
+    with np.errstate(invalid="ignore", divide="ignore"):
+        z = np.where(var > 0, e / np.sqrt(np.where(var > 0, var, 1.0)), np.nan)
+    if np.isnan(z).any():
+        model.warnings_.append("Some standardised residuals are undefined (a row fitted exactly, "
+                               "leverage 1); they are missing in the table.")
+    out = pd.DataFrame({"residual": e, "se": np.sqrt(np.maximum(var, 0.0)), "z": z},
+                       index=_row_index(model))
+    return _full_rows(model, out)
+
+
+def _loo_fits(model: Any) -> list[Any]:
+    from tqdm.auto import tqdm
+
+    if "loo" in model._cache:
+        return model._cache["loo"]
+    d = model._design
+    k = d.k
+    if k - 1 <= d.p:
+        raise ModelError(f"Leave-one-out needs k - 1 > p; k = {k}, p = {d.p}.")
+    fits = []
+    for i in tqdm(range(k), desc="leave-one-out", leave=False, disable=k < 200):
+        rows = np.delete(np.arange(k), i)
+        try:
+            fits.append(_clone(model)._fit_design(_subset(d, rows), emit=False))
+        except ModelError as exc:
+            fits.append(exc)
+    model._cache["loo"] = fits
+    return fits
+
+
+def leave_one_out(model: Any) -> pd.DataFrame:
+    """One row per left-out effect: each coefficient and its se, tau², Q_E, I²."""
+    fits = _loo_fits(model)
+    rows = []
+    bad = 0
+    for f in fits:
+        if isinstance(f, Exception):
+            bad += 1
+            rows.append({})
+            continue
+        r = {"tau2": f.tau2_, "Q_E": f.Q_E_, "I2": f.I2_}
+        for j, name in enumerate(f.terms_):
+            r[name] = f.coef_[j]
+            r[f"se_{name}"] = f.se_[j]
+        rows.append(r)
+    if bad:
+        model.warnings_.append(f"{bad} leave-one-out fit(s) failed (e.g. a category left empty); "
+                               "their rows are missing.")
+    return _full_rows(model, pd.DataFrame(rows, index=_row_index(model)))
+
+
+def cooks_distance(model: Any) -> pd.Series:
+    """Cook's distances ``(b - b₍₋ᵢ₎)ᵀ Var(b)⁻¹ (b - b₍₋ᵢ₎)`` with ``Var(b)`` of the full fit."""
+    fits = _loo_fits(model)
+    Vinv = np.linalg.inv(model.vcov_)
+    vals = np.array([np.nan if isinstance(f, Exception) else
+                     float((model.coef_ - f.coef_) @ Vinv @ (model.coef_ - f.coef_))
+                     for f in fits])
+    out = _full_rows(model, pd.DataFrame({"cooks_distance": vals}, index=_row_index(model)))
+    return out["cooks_distance"]
+
+
+def run_permutations(model: Any, n_permutations: int, seed: int | None,
+                     progress: bool) -> PermutationResult:
+    """Permute the moderator rows against (effect, variance) and refit each time."""
+    idx = model._mod_idx
+    if not idx:
+        raise ModelError("A permutation test needs at least one moderator besides the intercept.")
+    d = model._design
+    rows = np.arange(d.k)
+    terms = [model.terms_[j] for j in idx]
+
+    def refit(perm: np.ndarray) -> tuple[float, np.ndarray]:
+        try:
+            f = _clone(model)._fit_design(_subset(d, rows, permute_x=perm), emit=False)
+        except ModelError:  # a permutation that makes the design singular counts as extreme
+            return float("inf"), np.full(len(idx), np.inf)
+        return float(f.Q_M_), f.coefficients_["statistic"].to_numpy()[idx]
+
+    observed = (float(model.Q_M_), model.coefficients_["statistic"].to_numpy()[idx])
+    return permutation_test(refit, d.k, observed, terms, n_permutations, seed, progress)
