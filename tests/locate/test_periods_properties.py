@@ -18,8 +18,8 @@ from hypothesis import strategies as st
 
 from envlink.locate.periods import MISSING_MARKERS, PeriodError, parse_period, parse_period_columns
 
-settings.register_profile("periods", max_examples=150, deadline=None)
-settings.load_profile("periods")
+#: applied per test, so other modules' hypothesis settings are left alone
+PROFILE = settings(max_examples=150, deadline=None)
 
 DAYS = st.dates(min_value=dt.date(1800, 1, 1), max_value=dt.date(2199, 12, 31))
 YEARS = st.integers(min_value=1800, max_value=2199)
@@ -72,12 +72,14 @@ def day_texts(draw: st.DrawFn) -> tuple[str, dt.date, dict[str, str]]:
     return text, d, options
 
 
+@PROFILE
 @given(day_texts())
 def test_every_day_form_reads_back(case: tuple[str, dt.date, dict[str, str]]) -> None:
     text, day, options = case
     assert window(text, **options) == (day, day, "day")
 
 
+@PROFILE
 @given(DAYS, st.sampled_from(["/", ".", "-"]))
 def test_numeric_dates_without_order_resolve_only_when_the_text_decides(day: dt.date, sep: str) -> None:
     text = f"{day.day:02d}{sep}{day.month:02d}{sep}{day.year}"
@@ -91,6 +93,7 @@ def test_numeric_dates_without_order_resolve_only_when_the_text_decides(day: dt.
         assert str(day) in period.notes[0] and str(swapped) in period.notes[0]
 
 
+@PROFILE
 @given(YEARS, MONTHS, STYLES, CASE, st.integers(0, 3))
 def test_every_month_form_gives_the_whole_month(year: int, month: int, style: str, case, form: int) -> None:
     word = case(month_word(month, style))
@@ -99,11 +102,13 @@ def test_every_month_form_gives_the_whole_month(year: int, month: int, style: st
     assert window(text) == (*month_window(year, month), "month")
 
 
+@PROFILE
 @given(YEARS)
 def test_a_year_gives_the_whole_year(year: int) -> None:
     assert window(str(year)) == (dt.date(year, 1, 1), dt.date(year, 12, 31), "year")
 
 
+@PROFILE
 @given(DAYS, st.integers(0, 400), DASHES, STYLES, st.integers(0, 4))
 def test_day_ranges_read_back(first: dt.date, length: int, dash: str, style: str, form: int) -> None:
     last = first + dt.timedelta(days=length)
@@ -125,6 +130,7 @@ def test_day_ranges_read_back(first: dt.date, length: int, dash: str, style: str
     assert window(text) == (first, last, "day")
 
 
+@PROFILE
 @given(YEARS, MONTHS, st.integers(0, 30), DASHES, STYLES, st.integers(0, 2))
 def test_month_ranges_give_whole_months(year: int, month: int, extra: int, dash: str, style: str, form: int) -> None:
     index = year * 12 + month - 1 + extra
@@ -141,12 +147,14 @@ def test_month_ranges_give_whole_months(year: int, month: int, extra: int, dash:
     assert window(text) == (start, end, "month")
 
 
+@PROFILE
 @given(YEARS, st.integers(1, 40), DASHES)
 def test_year_ranges_give_whole_years(first: int, span: int, dash: str) -> None:
     last = first + span
     assert window(f"{first}{dash}{last}") == (dt.date(first, 1, 1), dt.date(last, 12, 31), "years")
 
 
+@PROFILE
 @given(DAYS, st.integers(1, 500), st.sampled_from(["D", "W", "M", "Y"]))
 def test_start_and_duration_end_the_day_before_the_step(start: dt.date, n: int, unit: str) -> None:
     # Reference: dateutil.relativedelta for month and year steps (day clipped to the month).
@@ -160,6 +168,7 @@ def test_start_and_duration_end_the_day_before_the_step(start: dt.date, n: int, 
     assert window(f"{start.isoformat()}/P{count}{unit}") == (start, end, precision)
 
 
+@PROFILE
 @given(DAYS, st.integers(1, 500), st.sampled_from(["D", "M"]))
 def test_duration_and_end_start_one_step_before_the_next_day(end: dt.date, n: int, unit: str) -> None:
     step = relativedelta(days=n) if unit == "D" else relativedelta(months=n)
@@ -182,6 +191,7 @@ def season_reference(months: tuple[int, ...], year: int) -> tuple[dt.date, dt.da
     return dt.date(first_year, months[0], 1), month_window(year, months[-1])[1]
 
 
+@PROFILE
 @given(st.sampled_from(sorted(SEASONS)), YEARS, CASE)
 def test_explicit_seasons(key: tuple[str, str], year: int, case) -> None:
     months = SEASONS[key]
@@ -190,6 +200,7 @@ def test_explicit_seasons(key: tuple[str, str], year: int, case) -> None:
     assert window(f"{code} {year}") == (*season_reference(months, year), "season")
 
 
+@PROFILE
 @given(st.sampled_from(["winter", "spring", "summer", "autumn"]), YEARS)
 def test_plain_seasons_follow_the_hemisphere_option(word: str, year: int) -> None:
     north = parse_period(f"{word} {year}", hemisphere="north")
@@ -201,6 +212,7 @@ def test_plain_seasons_follow_the_hemisphere_option(word: str, year: int) -> Non
     assert austral is not None and (austral.start, austral.end) == season_reference(SEASONS["austral", word], year)
 
 
+@PROFILE
 @given(st.lists(MONTHS, min_size=1, max_size=12, unique=True), YEARS)
 def test_mapped_seasons(months: list[int], year: int) -> None:
     run = set(months)
@@ -214,6 +226,7 @@ def test_mapped_seasons(months: list[int], year: int) -> None:
     assert window(f"wet season {year}", season_months={"wet": months}) == (*expected, "season")
 
 
+@PROFILE
 @given(day_texts(), day_texts())
 def test_separate_columns_span_from_first_to_second(a, b) -> None:
     (ta, da, oa), (tb, db, ob) = sorted([a, b], key=lambda c: c[1])
@@ -223,11 +236,13 @@ def test_separate_columns_span_from_first_to_second(a, b) -> None:
     assert period is not None and (period.start, period.end, period.precision) == (da, db, "day")
 
 
+@PROFILE
 @given(st.sampled_from(sorted(MISSING_MARKERS)), CASE, st.sampled_from(["", " ", "\t"]))
 def test_missing_markers_in_any_case(marker: str, case, pad: str) -> None:
     assert parse_period(pad + case(marker) + pad) is None
 
 
+@PROFILE
 @given(st.text(alphabet="0123456789-/.: ,TWPYMDHSZ+JanFebMrSeptOcNovDumwinterspAlbo?~", max_size=30))
 def test_any_text_gives_a_period_none_or_a_period_error(text: str) -> None:
     # No other exception may escape: a user never sees a traceback.
