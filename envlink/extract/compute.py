@@ -1,0 +1,222 @@
+"""Computing per-row values from cell series: source blocks, nearest-valid search.
+
+:func:`compute_values` walks the sources in blocks (so memory stays bounded however
+many rows there are), builds each block's source series from the cell series, and
+applies the statistic to every row of the block at once. :func:`nearest_valid`
+implements the ``nearest-valid:Dkm`` rule, where "valid" means having data in the
+row's own window with at least the minimum coverage.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterator
+
+import numpy as np
+import xarray as xr
+
+from envlink.errors import InputError
+from envlink.extract.options import StatSpec
+from envlink.extract.reader import read_cells
+from envlink.extract.sources import Sources
+from envlink.extract.spatial import GridGeometry
+from envlink.extract.stats import (
+    Spans,
+    Steps,
+    _wsum,
+    climatology,
+    dhw_series,
+    monthly_climatology,
+    window_stat,
+)
+
+__all__ = ["compute_values", "nearest_valid", "coverage"]
+
+_BLOCK_ELEMENTS = 4_000_000
+
+
+def _sub(sp: Spans, r: np.ndarray) -> Spans:
+    return Spans(sp.i0[r], sp.i1[r], sp.ov0[r], sp.ov1[r], sp.days[r], sp.has[r])
+
+
+def _blocks(row_src: np.ndarray, nsrc: int, nt: int) -> Iterator[tuple[int, int, np.ndarray]]:
+    """Yield (first source, end source, rows) for blocks of sources."""
+    per = max(1, _BLOCK_ELEMENTS // max(nt, 1))
+    rows = np.nonzero(row_src >= 0)[0]
+    order = rows[np.argsort(row_src[rows], kind="stable")]
+    srcs = row_src[order]
+    for a in range(0, nsrc, per):
+        b = min(a + per, nsrc)
+        lo, hi = np.searchsorted(srcs, a, "left"), np.searchsorted(srcs, b, "left")
+        if hi > lo:
+            yield a, b, order[lo:hi]
+
+
+def coverage(X: np.ndarray, steps: Steps, row_x: np.ndarray, sp: Spans) -> np.ndarray:
+    """Fraction of each row's window days with data in cell series ``X[row_x]``."""
+    out = np.zeros(row_x.size)
+    for a, b, rows in _blocks(row_x, X.shape[0], X.shape[1]):
+        vf = np.isfinite(X[a:b]).astype(np.float64)
+        s = _sub(sp, rows)
+        out[rows] = _wsum(vf, steps.length[None, :], row_x[rows] - a, s, s.ov0, s.ov1) / s.days
+    return np.where(sp.has, out, 0.0)
+
+
+def _source_series(X: np.ndarray, xrow: np.ndarray, srcs: Sources, a: int, b: int) -> np.ndarray:
+    p0, p1 = srcs.ptr[a], srcs.ptr[b]
+    if srcs.single:
+        return X[xrow[p0:p1]].astype(np.float64)
+    from scipy import sparse
+
+    used, local = np.unique(xrow[p0:p1], return_inverse=True)
+    counts = np.diff(srcs.ptr[a : b + 1])
+    rows = np.repeat(np.arange(b - a), counts)
+    W = sparse.csr_matrix((srcs.weights[p0:p1], (rows, local.ravel())), shape=(b - a, used.size))
+    Xs = X[used].astype(np.float64)
+    valid = np.isfinite(Xs)
+    num = W @ np.where(valid, Xs, 0.0)
+    den = W @ valid.astype(np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / den, np.nan)
+
+
+def _mmm_from_grid(mmm: xr.DataArray, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+    da = mmm.squeeze(drop=True)
+    if set(da.dims) != {"lat", "lon"}:
+        raise InputError(f"The mmm climatology must have dims (lat, lon); got {tuple(mmm.dims)}.")
+    pick = da.sel(lat=xr.DataArray(lat, dims="p"), lon=xr.DataArray(lon, dims="p"), method="nearest")
+    return np.asarray(pick.values, dtype=np.float64)
+
+
+def compute_values(
+    X: np.ndarray,
+    xrow: np.ndarray,
+    srcs: Sources,
+    steps: Steps,
+    spans: Spans,
+    st: StatSpec,
+    weights: str,
+    in_base: np.ndarray,
+    mmm: float | xr.DataArray | None,
+    geom: GridGeometry,
+    rule: str,
+) -> tuple[np.ndarray, np.ndarray, list[tuple[int, str]]]:
+    """Value and coverage of every row (NaN / 0 where it has no source) and extra flags."""
+    n = srcs.row_src.size
+    value, cov = np.full(n, np.nan), np.zeros(n)
+    extra: list[tuple[int, str]] = []
+    nsrc = srcs.ptr.size - 1
+    if st.kind == "anomaly":
+        keys = steps.month - 1 if steps.monthly else (steps.month - 1) * 31 + steps.day - 1
+        nkeys = 12 if steps.monthly else 372
+    for a, b, rows in _blocks(srcs.row_src, nsrc, X.shape[1]):
+        S = _source_series(X, xrow, srcs, a, b)
+        loc = srcs.row_src[rows] - a
+        sp = _sub(spans, rows)
+        kind = st.kind
+        if kind == "anomaly":
+            clim = climatology(S, keys, nkeys, in_base)
+            v, c = window_stat(S - clim[:, keys], steps, loc, sp, "mean", weights=weights)
+        elif kind in ("mmm", "dhw-max"):
+            if kind == "dhw-max" and isinstance(mmm, float):
+                m = np.full(b - a, mmm)
+            elif kind == "dhw-max" and isinstance(mmm, xr.DataArray):
+                rep = srcs.cells[srcs.ptr[a:b]]
+                la, lo = geom.cell_latlon(rep)
+                m = _mmm_from_grid(mmm, la, lo)
+            else:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    m = np.nanmax(monthly_climatology(S, steps, in_base), axis=1)
+            if kind == "mmm":
+                _, c = window_stat(S, steps, loc, sp, "sum", weights=weights)
+                v = m[loc]
+            else:
+                v, c = window_stat(dhw_series(S, m), steps, loc, sp, "max", weights=weights)
+                v = np.where(np.isfinite(m[loc]), v, np.nan)
+        else:
+            v, c = window_stat(S, steps, loc, sp, kind, weights=weights, q=st.q, threshold=st.threshold)
+        value[rows], cov[rows] = v, c
+        if rule == "bilinear":
+            base = srcs.ptr[srcs.row_src[rows]]
+            for k in range(4):
+                ck = coverage(X, steps, xrow[base + k], sp)
+                miss = (srcs.weights[base + k] > 0) & (ck < c - 1e-9)
+                extra.extend((int(r), "bilinear_missing_neighbour") for r in rows[miss])
+    return value, cov, extra
+
+
+def nearest_valid(
+    grid: xr.DataArray,
+    geom: GridGeometry,
+    steps: Steps,
+    spans: Spans,
+    srcs: Sources,
+    lat: np.ndarray,
+    lon: np.ndarray,
+    active: np.ndarray,
+    km: float,
+    min_cov: float,
+    flags: list[list[str]],
+    show: bool | None,
+) -> tuple[np.ndarray, Sources]:
+    """Read cells and choose, per row, the nearest cell with data in its window.
+
+    The row's own (nearest) cell is kept when its coverage reaches ``min_cov`` (and
+    is above zero); otherwise the cells whose centres lie within ``km`` are tried in
+    order of distance. Cells known to hold no data at any step are skipped unread.
+    """
+    from envlink.extract.attach import _progress
+
+    thr = max(min_cov, 1e-9)
+    any_valid = np.full(geom.shape, -1, dtype=np.int8)
+    with _progress(show, lat.size, srcs.cells.size, "attach: reading cells") as bar:
+        X = read_cells(grid, srcs.cells, progress=bar.update, any_valid=any_valid)
+    cells = srcs.cells.copy()
+    row_x = srcs.row_src.copy()
+    cov0 = coverage(X, steps, row_x, spans)
+    fail = active & ((row_x < 0) | (cov0 < thr))
+    row_cell, row_dist = srcs.row_cell.copy(), srcs.row_dist.copy()
+    if fail.any():
+        fr = np.nonzero(fail)[0]
+        key = np.column_stack([lat[fr], lon[fr]])
+        usite, inv = np.unique(key, axis=0, return_inverse=True)
+        inv = inv.ravel()
+        ptr, cand, dist = geom.within(usite[:, 0], usite[:, 1], km)
+        flat_valid = any_valid.ravel()
+        keep = flat_valid[cand] != 0
+        new = np.setdiff1d(cand[keep], cells)
+        if new.size:
+            with _progress(show, lat.size, new.size, "attach: reading candidate cells") as bar:
+                X1 = read_cells(grid, new, progress=bar.update)
+            X = np.concatenate([X, X1], axis=0)
+            cells = np.concatenate([cells, new])
+        order = np.argsort(cells, kind="stable")
+        # candidate pairs (row, cell) in order of distance, skipping known-empty cells
+        counts = np.diff(ptr)
+        starts = ptr[:-1]
+        pr = np.repeat(fr, counts[inv])
+        pos = np.concatenate([np.arange(starts[s], starts[s] + counts[s]) for s in inv]) if pr.size else np.array([], dtype=np.int64)
+        pos = pos.astype(np.int64)
+        ok = keep[pos]
+        pr, pos = pr[ok], pos[ok]
+        px = order[np.searchsorted(cells[order], cand[pos])]
+        pcov = coverage(X, steps, px, _sub(spans, pr))
+        good = pcov >= thr
+        chosen = {}
+        for r, x, p in zip(pr[good], px[good], pos[good], strict=True):
+            if r not in chosen:
+                chosen[r] = (x, p)
+        for r in fr:
+            if r in chosen:
+                x, p = chosen[r]
+                row_x[r], row_cell[r], row_dist[r] = x, cells[x], dist[p]
+                if srcs.row_cell[r] != cells[x]:
+                    flags[r].append(f"nearest_valid_{int(round(float(dist[p])))}km")
+            else:
+                row_x[r] = -1
+                if srcs.row_cell[r] < 0:
+                    flags[r].append("outside_grid")
+                flags[r].append(f"no_valid_cell_within_{km:g}km")
+    out = Sources(np.arange(cells.size + 1), cells, np.ones(cells.size), row_x, row_cell, row_dist, [])
+    return X, out

@@ -1,0 +1,290 @@
+"""Spatial rules: which grid cells (and weights) answer a site.
+
+:class:`GridGeometry` describes the horizontal layout of a normalised grid (regular
+lat/lon, curvilinear with 2-D lat/lon, or projected x/y with a CRS) and finds cells
+for sites, in float64:
+
+- :meth:`GridGeometry.nearest`: the cell containing the site (regular and projected
+  grids, by cell edges) or the nearest centre (curvilinear, KD-tree on unit vectors);
+  sites outside the grid get ``-1``, never an edge cell.
+- :meth:`GridGeometry.within`: every cell centre within a distance, sorted by distance
+  (``nearest-valid`` candidates and ``buffer``).
+- :func:`bilinear_cells`: the four neighbours and weights (regular grids; wraps
+  across the antimeridian on global grids).
+- :func:`polygon_cells`: cells a polygon overlaps, weighted by the spherical area
+  inside the polygon.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from envlink.errors import InputError
+from envlink.geo import (
+    EARTH_RADIUS_KM,
+    build_kdtree,
+    cell_area_km2,
+    cell_edges,
+    great_circle_km,
+    km_to_chord,
+    polygon_cell_overlaps,
+    unit_vectors,
+)
+
+
+def _cat(xs: list[np.ndarray], dt: type) -> np.ndarray:
+    return np.concatenate(xs).astype(dt) if xs else np.array([], dtype=dt)
+
+
+__all__ = ["GridGeometry", "bilinear_cells", "polygon_cells"]
+
+_KM_PER_DEG = np.pi * EARTH_RADIUS_KM / 180.0
+
+
+def _locate_1d(edges: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Index of the cell containing x (ascending edges), -1 outside; float64 ties go up."""
+    i = np.searchsorted(edges, x, side="right") - 1
+    i = np.where(x == edges[-1], edges.size - 2, i)  # the last edge belongs to the last cell
+    return np.where((x < edges[0]) | (x > edges[-1]) | ~np.isfinite(x), -1, i)
+
+
+class GridGeometry:
+    """Horizontal layout of a normalised grid (see :mod:`envlink.testing`).
+
+    Parameters
+    ----------
+    grid : xarray.DataArray
+        A normalised grid; only its coordinates and attributes are read.
+
+    Examples
+    --------
+    >>> from envlink.testing import make_grid
+    >>> g = GridGeometry(make_grid(lat=[0.5, 1.5], lon=[10.5, 11.5], periods=1, seed=0))
+    >>> g.kind, g.shape, g.nearest(np.array([1.2]), np.array([10.9]))[0].tolist()
+    ('regular', (2, 2), [2])
+    """
+
+    def __init__(self, grid: xr.DataArray) -> None:
+        dims = tuple(grid.dims)
+        if len(dims) != 3 or dims[0] != "time":
+            raise InputError(
+                f"attach needs a normalised grid with dims (time, lat, lon) or (time, y, x); got {dims}. "
+                "Open files with envlink.open_grid."
+            )
+        self.dims = dims[1:]
+        self.shape = (int(grid.sizes[dims[1]]), int(grid.sizes[dims[2]]))
+        lat, lon = grid.coords.get("lat"), grid.coords.get("lon")
+        self._tree = None
+        if self.dims == ("lat", "lon"):
+            self.kind = "regular"
+            self.lat = np.asarray(lat.values, dtype=np.float64)
+            self.lon = np.asarray(lon.values, dtype=np.float64)
+            self.lat_edges = cell_edges(self.lat)
+            self.lon_edges = cell_edges(self.lon)
+            span = self.lon_edges[-1] - self.lon_edges[0]
+            self.is_global = bool(grid.attrs.get("envlink_global", span >= 360.0 - 1e-6))
+        elif lat is not None and lon is not None and lat.ndim == 2:
+            self.kind = "curvilinear"
+            self.lat2 = np.asarray(lat.values, dtype=np.float64)
+            self.lon2 = np.asarray(lon.values, dtype=np.float64)
+            self.is_global = False
+        elif "crs_wkt" in grid.attrs and "x" in grid.coords and "y" in grid.coords:
+            import pyproj
+
+            self.kind = "projected"
+            crs = pyproj.CRS.from_wkt(grid.attrs["crs_wkt"])
+            self._fwd = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+            self._inv = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+            self.x = np.asarray(grid["x"].values, dtype=np.float64)
+            self.y = np.asarray(grid["y"].values, dtype=np.float64)
+            self._ydesc = self.y.size > 1 and self.y[1] < self.y[0]
+            self.x_edges = cell_edges(self.x)
+            self.y_edges = cell_edges(self.y[::-1] if self._ydesc else self.y)
+            self.is_global = False
+        else:
+            raise InputError(
+                "attach cannot read the grid's horizontal layout: expected 1-D lat/lon, 2-D lat/lon "
+                "coordinates, or 1-D x/y with attrs['crs_wkt']."
+            )
+
+    # -- cell centres -------------------------------------------------------------------
+    @property
+    def size(self) -> int:
+        """Number of horizontal cells."""
+        return self.shape[0] * self.shape[1]
+
+    def cell_latlon(self, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Centre latitude and longitude (degrees) of flat cell indices (NaN for -1)."""
+        flat = np.asarray(flat, dtype=np.int64)
+        good = flat >= 0
+        iy, ix = np.divmod(np.where(good, flat, 0), self.shape[1])
+        if self.kind == "regular":
+            la, lo = self.lat[iy], self.lon[ix]
+        elif self.kind == "curvilinear":
+            la, lo = self.lat2[iy, ix], self.lon2[iy, ix]
+        else:
+            lo, la = self._inv.transform(self.x[ix], self.y[iy])
+            la, lo = np.asarray(la, dtype=np.float64), np.asarray(lo, dtype=np.float64)
+        return np.where(good, la, np.nan), np.where(good, lo, np.nan)
+
+    def _all_latlon(self) -> tuple[np.ndarray, np.ndarray]:
+        if self.kind == "regular":
+            la, lo = np.meshgrid(self.lat, self.lon, indexing="ij")
+            return la, lo
+        if self.kind == "curvilinear":
+            return self.lat2, self.lon2
+        return self.cell_latlon(np.arange(self.size).reshape(self.shape))
+
+    def tree(self):  # noqa: ANN201
+        """KD-tree over every cell centre (built once)."""
+        if self._tree is None:
+            la, lo = self._all_latlon()
+            self._tree = build_kdtree(la.ravel(), lo.ravel())
+        return self._tree
+
+    def cell_areas(self, flat: np.ndarray) -> np.ndarray:
+        """Cell areas in km² (exact spherical on regular grids; equal weights otherwise)."""
+        flat = np.asarray(flat, dtype=np.int64)
+        if self.kind != "regular":
+            return np.ones(flat.shape, dtype=np.float64)
+        iy, ix = np.divmod(flat, self.shape[1])
+        return cell_area_km2(self.lat_edges[iy], self.lat_edges[iy + 1], np.diff(self.lon_edges)[ix])
+
+    # -- rules --------------------------------------------------------------------------
+    def nearest(self, lat: np.ndarray, lon: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Flat index of the cell answering each site (-1 outside the grid) and distance km."""
+        lat = np.asarray(lat, dtype=np.float64)
+        lon = np.asarray(lon, dtype=np.float64)
+        ny, nx = self.shape
+        if self.kind == "regular":
+            iy = _locate_1d(self.lat_edges, lat)
+            e0 = self.lon_edges[0]
+            lon_w = e0 + np.mod(lon - e0, 360.0)  # into [e0, e0 + 360)
+            ix = _locate_1d(self.lon_edges, lon_w)
+            if self.is_global:
+                ix = np.where((ix < 0) & np.isfinite(lon), np.where(lon_w >= self.lon_edges[-1], nx - 1, 0), ix)
+            flat = np.where((iy >= 0) & (ix >= 0), iy * nx + ix, -1)
+        elif self.kind == "projected":
+            x, y = self._fwd.transform(lon, lat)
+            ix = _locate_1d(self.x_edges, np.asarray(x, dtype=np.float64))
+            iy = _locate_1d(self.y_edges, np.asarray(y, dtype=np.float64))
+            iy = np.where(iy >= 0, (ny - 1 - iy) if self._ydesc else iy, -1)
+            flat = np.where((iy >= 0) & (ix >= 0), iy * nx + ix, -1)
+        else:
+            tree = self.tree()
+            good = np.isfinite(lat) & np.isfinite(lon)
+            xyz = unit_vectors(np.where(good, lat, 0.0), np.where(good, lon, 0.0))
+            chord, idx = tree.query(xyz)
+            # a site farther from its nearest centre than that centre's own spacing is outside
+            sp, _ = tree.query(tree.data[idx], k=2)
+            flat = np.where(good & (chord <= sp[:, 1] * 1.0 + 1e-12), idx, -1)
+        cla, clo = self.cell_latlon(flat)
+        return flat.astype(np.int64), great_circle_km(lat, lon, cla, clo)
+
+    def within(
+        self, lat: np.ndarray, lon: np.ndarray, km: float
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Cells whose centres lie within ``km`` of each site, sorted by distance.
+
+        Returns CSR arrays ``ptr`` (n + 1), ``cells`` and ``dist_km``.
+        """
+        lat = np.asarray(lat, dtype=np.float64)
+        lon = np.asarray(lon, dtype=np.float64)
+        ptr, cells, dists = [0], [], []
+        for a, b in zip(lat, lon, strict=True):
+            if not (np.isfinite(a) and np.isfinite(b)):
+                ptr.append(ptr[-1])
+                continue
+            if self.kind == "regular":
+                c = self._box(a, b, km)
+            else:
+                c = np.asarray(self.tree().query_ball_point(unit_vectors(a, b), km_to_chord(km) * (1 + 1e-9)), dtype=np.int64)
+            cla, clo = self.cell_latlon(c)
+            d = great_circle_km(a, b, cla, clo)
+            keep = d <= km
+            order = np.argsort(d[keep], kind="stable")
+            cells.append(c[keep][order])
+            dists.append(d[keep][order])
+            ptr.append(ptr[-1] + int(keep.sum()))
+        return np.asarray(ptr, dtype=np.int64), _cat(cells, np.int64), _cat(dists, np.float64)
+
+    def _box(self, lat: float, lon: float, km: float) -> np.ndarray:
+        dlat = km / _KM_PER_DEG
+        iy = np.nonzero((self.lat >= lat - dlat) & (self.lat <= lat + dlat))[0]
+        coslat = np.cos(np.radians(min(abs(lat) + dlat, 90.0)))
+        dlon = 360.0 if coslat < 1e-6 else min(km / (_KM_PER_DEG * coslat), 360.0)
+        off = np.mod(self.lon - lon + 180.0, 360.0) - 180.0
+        ix = np.nonzero(np.abs(off) <= dlon)[0] if self.is_global else np.nonzero(np.abs(self.lon - lon) <= dlon)[0]
+        return (iy[:, None] * self.shape[1] + ix[None, :]).ravel()
+
+
+def bilinear_cells(geom: GridGeometry, lat: np.ndarray, lon: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Four neighbour cells (n, 4) and bilinear weights (n, 4) on a regular grid.
+
+    Sites between the outermost centre and the grid edge use the edge row / column
+    (weights collapse onto it); global grids wrap in longitude. Sites outside get -1.
+
+    Examples
+    --------
+    >>> from envlink.testing import make_grid
+    >>> g = GridGeometry(make_grid(lat=[0.0, 1.0], lon=[0.0, 1.0], periods=1, seed=0))
+    >>> c, w = bilinear_cells(g, np.array([0.25]), np.array([0.5]))
+    >>> c.tolist(), w.tolist()
+    ([[0, 1, 2, 3]], [[0.375, 0.375, 0.125, 0.125]])
+    """
+    if geom.kind != "regular":
+        raise InputError("The 'bilinear' spatial rule needs a regular lat/lon grid; use 'nearest' or 'buffer:Rkm'.")
+    lat = np.asarray(lat, dtype=np.float64)
+    lon = np.asarray(lon, dtype=np.float64)
+    ny, nx = geom.shape
+    inside, _ = geom.nearest(lat, lon)
+    la = geom.lat
+    j = np.clip(np.searchsorted(la, lat, side="right") - 1, 0, max(ny - 2, 0))
+    j1 = np.minimum(j + 1, ny - 1)
+    ty = np.where(j1 > j, (lat - la[j]) / np.where(j1 > j, la[j1] - la[j], 1.0), 0.0)
+    ty = np.clip(ty, 0.0, 1.0)
+    lo = geom.lon
+    if geom.is_global:
+        ext = np.concatenate([lo, [lo[0] + 360.0]])
+        lon_w = lo[0] + np.mod(lon - lo[0], 360.0)
+        i = np.clip(np.searchsorted(ext, lon_w, side="right") - 1, 0, nx - 1)
+        i1 = (i + 1) % nx
+        tx = (lon_w - ext[i]) / (ext[i + 1] - ext[i])
+    else:
+        i = np.clip(np.searchsorted(lo, lon, side="right") - 1, 0, max(nx - 2, 0))
+        i1 = np.minimum(i + 1, nx - 1)
+        tx = np.where(i1 > i, (lon - lo[i]) / np.where(i1 > i, lo[i1] - lo[i], 1.0), 0.0)
+    tx = np.clip(tx, 0.0, 1.0)
+    cells = np.stack([j * nx + i, j * nx + i1, j1 * nx + i, j1 * nx + i1], axis=1)
+    w = np.stack([(1 - ty) * (1 - tx), (1 - ty) * tx, ty * (1 - tx), ty * tx], axis=1)
+    bad = inside < 0
+    cells[bad] = -1
+    w[bad] = 0.0
+    return cells.astype(np.int64), w
+
+
+def polygon_cells(geom: GridGeometry, wkt: str) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Flat cells a WKT polygon (lon/lat) overlaps, their inside areas (km²) and a
+    flag saying the polygon is smaller than the largest cell it touches.
+
+    Examples
+    --------
+    >>> from envlink.testing import make_grid
+    >>> g = GridGeometry(make_grid(lat=[0.5], lon=[0.5, 1.5], periods=1, seed=0))
+    >>> c, a, small = polygon_cells(g, "POLYGON ((0.5 0.2, 1.5 0.2, 1.5 0.4, 0.5 0.4, 0.5 0.2))")
+    >>> c.tolist(), small
+    ([0, 1], True)
+    """
+    import shapely
+
+    if geom.kind != "regular":
+        raise InputError("The 'polygon' spatial rule needs a regular lat/lon grid; use 'buffer:Rkm' on this grid.")
+    try:
+        poly = shapely.from_wkt(wkt)
+    except shapely.errors.GEOSException as exc:
+        raise InputError(f"Cannot read the site polygon {wkt[:60]!r}: {exc}") from exc
+    iy, ix, area, frac = polygon_cell_overlaps(poly, geom.lat_edges, geom.lon_edges, wrap=geom.is_global)
+    flat = iy * geom.shape[1] + ix
+    small = bool(area.size and area.sum() < geom.cell_areas(flat).max())
+    return flat.astype(np.int64), area, small
