@@ -178,6 +178,9 @@ def _split_candidates(s: str) -> list[list[tuple[str, str]]]:
                                                and s[i + 1].isdigit())]
     decimal_commas = [i for i in commas if i not in loose_commas]
     spaces = [i for i, c in enumerate(s) if c == " "]
+    # " - " may be a separator or a minus sign: offer both readings, so that a pair
+    # where the two differ is reported as ambiguous instead of guessed
+    spaced_dashes = [i for i in range(1, len(s) - 1) if s[i - 1 : i + 2] == " - "]
     joins: list[int] = []
     for m in _HEMI_CHAR.finditer(s):
         joins.extend(i for i in (m.start(), m.end()) if 0 < i < len(s) and s[i] != " "
@@ -186,7 +189,7 @@ def _split_candidates(s: str) -> list[list[tuple[str, str]]]:
     return [
         cut_at(explicit, 1),
         cut_at(loose_commas, 1),
-        cut_at(spaces, 1),
+        cut_at(spaces, 1) + cut_at(spaced_dashes, 1),
         cut_at(decimal_commas, 1),
         cut_at(sorted(set(joins)), 0),
     ]
@@ -228,6 +231,8 @@ def _parse_pair(s: str) -> Coordinate:
     m = _BRACKETS.match(s)
     if m:
         s = m.group(1)
+    if s.endswith("/") and s.count("/") == 1:
+        s = s[:-1].rstrip()  # a signed pair ended ISO-style but not in ISO 6709 digits
     labelled = _by_labels(s)
     if labelled is not None:
         return labelled

@@ -167,6 +167,10 @@ PAIRS = [
     ("12°30'00\"N 045°12'00\"E", 12.5, 45.2, SEC, ()),
     # words for minutes and seconds
     ("12 deg 30 min 15 sec S, 45 deg 12 min 30 sec W", S12_30_15, W45_12_30, SEC, ()),
+    # signed pair ended with '/' but a 1-digit latitude, so not ISO 6709
+    ("+5-075/", 5.0, -75.0, DEG, ()),
+    # ' - ' between lettered values: both readings agree, so it is read
+    ("12.5S - 45.2W", -12.5, -45.2, DEG / 10, ()),
     # minus zero is plain zero
     ("-0.0, -0.0", 0.0, 0.0, DEG / 10, ()),
     # a minus sign that agrees with the S letter is accepted
@@ -343,6 +347,9 @@ ERRORS = [
     # one letter between two bare numbers could belong to either
     (parse_coordinates, ("12.5 S 45.2",), "ambiguous_coordinate", "coords",
      ["more than one way"]),
+    # ' - ' between unlettered numbers: separator (12.5, 45.2) or minus (12.5, -45.2)?
+    (parse_coordinates, ("12.5 - 45.2",), "ambiguous_coordinate", "coords",
+     ["'12.5' + '- 45.2'", "'12.5' + '45.2'"]),
     # separate columns holding each other's letters: rejected with the swap suggested
     (parse_lat_lon, ("45.2W", "12.5S"), "swapped_lat_lon_suggested", "coords",
      ["45.2W | 12.5S", "look swapped", "lat=-12.5, lon=-45.2"]),
