@@ -1,0 +1,235 @@
+"""The TOML project file: every bad key or value is named with its line and the allowed values.
+
+The parser is the standard library's ``tomllib`` (TOML 1.0, https://toml.io/en/v1.0.0);
+line numbers in messages are checked against the test's own text. The end-to-end run
+here uses no grid (locate -> effects -> model -> export); the demo test covers grids.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from envlink.demo_grids import data_path
+
+import envlink
+from envlink import InputError
+from envlink._projectschema import key_lines
+from envlink.cli import main
+from envlink.export import file_sha256
+from envlink.project import load_project, run_project
+
+STUDIES = """study,lat,lon,when,sick,seen,depth
+A,-9.51,-117.20,March 2008,12,80,3
+A,-9.62,-117.31,Apr-May 2008,20,90,9
+B,9°30'S,117°15'W,2009-02-01/2009-02-20,5,60,4
+B,-8.10,-116.90,austral summer 2010/11,30,120,12
+C,-10.20,-118.00,June 2011,9,75,6
+C,-95.00,-118.00,June 2011,9,75,6
+"""
+
+BASE = """\
+[project]
+title = "test project"
+
+[studies]
+path = "studies.csv"
+study = "study"
+
+[locate]
+lat = "lat"
+lon = "lon"
+period = "when"
+
+[effects]
+kind = "logit_proportion"
+
+[effects.columns]
+events = "sick"
+total = "seen"
+
+[model]
+moderators = "depth"
+method = "REML"
+test = "knapp-hartung"
+
+[export]
+formats = ["csv", "parquet"]
+report = false
+"""
+
+
+def _line_of(text: str, needle: str) -> int:
+    """1-based number of the line of ``text`` that holds ``needle``, counted here."""
+    return next(i for i, line in enumerate(text.splitlines(), 1) if needle in line)
+
+
+def _project(tmp_path: Path, text: str = BASE, name: str = "p.toml") -> Path:
+    (tmp_path / "studies.csv").write_text(STUDIES)
+    p = tmp_path / name
+    p.write_text(text)
+    return p
+
+
+def test_bundled_demo_project_is_valid() -> None:
+    project = load_project(data_path("demo.toml"))
+    assert [c["name"] for c in project.covariates] == ["sst_anom", "dhw_max", "air_lag3m"]
+    assert project.studies == data_path("vell_studies.csv")
+    assert len(project.sha256) == 64
+
+
+def test_key_lines_follow_the_text() -> None:
+    text = '# c\n[a]\nx = 1\n\n[[covariates]]\nname = "p"\n[[covariates]]\n name = "q"\n'
+    lines = key_lines(text)
+    assert lines[("a", "x")] == 3
+    assert lines[("covariates", 0, "name")] == 6
+    assert lines[("covariates", 1, "name")] == 8
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "pattern"),
+    [
+        ('method = "REML"', 'methd = "REML"',
+         r"p\.toml, line LINE: unknown key 'methd' in \[model\]\. Did you mean 'method'\? "
+         r"Allowed keys: moderators, method, test, nested, cluster\."),
+        ('method = "REML"', 'method = "reml2"',
+         r"line LINE: the key 'model\.method' must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; "
+         r"got 'reml2'\."),
+        ('test = "knapp-hartung"', 'test = "t"',
+         r"line LINE: the key 'model\.test' must be one of 'z', 'knapp-hartung'; got 't'\."),
+        ('kind = "logit_proportion"', 'kind = "logit"',
+         r"line LINE: the key 'effects\.kind' must be one of 'logit_proportion', .*'ln_cvr'; "
+         r"got 'logit'\."),
+        ('formats = ["csv", "parquet"]', 'formats = ["csv", "xlsx"]',
+         r"line LINE: the key 'export\.formats' must be a list drawn from 'csv', 'parquet', 'gpkg'"),
+        ("report = false", 'report = "no"', r"line LINE: the key 'export\.report' must be true or false"),
+        ('path = "studies.csv"', 'file = "studies.csv"',
+         r"line LINE: unknown key 'file' in \[studies\]\. Allowed keys: path, study\."),
+        ("[export]", "[exports]", r"line LINE: unknown section 'exports'\. Did you mean 'export'\?"),
+        ('lat = "lat"', 'lat = ""', r"line LINE: the key 'locate\.lat' must be a column name"),
+        ('lat = "lat"', 'lat = "lat"\norder = "ymd"',
+         r"line LINE: the key 'locate\.order' must be one of 'dayfirst', 'monthfirst'; got 'ymd'"),
+    ],
+)
+def test_bad_key_or_value_names_key_line_and_allowed(tmp_path: Path, old: str, new: str,
+                                                    pattern: str) -> None:
+    assert old in BASE
+    text = BASE.replace(old, new, 1)
+    p = _project(tmp_path, text)
+    pattern = pattern.replace("LINE", str(_line_of(text, new.splitlines()[-1])))
+    with pytest.raises(InputError, match=pattern):
+        load_project(p)
+
+
+COVARIATES = """
+[grids.sst]
+path = "sst.nc"
+
+[[covariates]]
+name = "a"
+grid = "sst"
+
+[[covariates]]
+name = "b"
+grid = "sst"
+stat = "avg"
+"""
+
+
+def _raises_at(tmp_path: Path, text: str, needle: str, pattern: str) -> None:
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=f"line {_line_of(text, needle)}: " + pattern):
+        load_project(p)
+
+
+def test_covariate_errors_name_the_entry_and_line(tmp_path: Path) -> None:
+    text = BASE + COVARIATES
+    _raises_at(tmp_path, text, 'stat = "avg"',
+               r"the key 'covariates\[1\]\.stat' must be mean, min, max, sum, std, quantile:Q, "
+               r"above:T, degree-days:T, anomaly, mmm or dhw-max; got 'avg'\.")
+    _raises_at(tmp_path, text.replace('stat = "avg"', 'window = "lag3M"'), 'window = "lag3M"',
+               r"the key 'covariates\[1\]\.window' must be period, lag:N\{D\|M\|Y\}")
+    _raises_at(tmp_path, text.replace('stat = "avg"', 'spatial = "nearest-valid"'), "spatial",
+               r"the key 'covariates\[1\]\.spatial' must be nearest, bilinear, "
+               r"nearest-valid:Dkm, buffer:Rkm or polygon")
+    bad_grid = text.replace('grid = "sst"\nstat = "avg"', 'grid = "sts"')
+    _raises_at(tmp_path, bad_grid, 'grid = "sts"',
+               r"the key 'covariates\[1\]\.grid' must be the name of a \[grids\.NAME\] table "
+               r"\('sst'\); got 'sts'\. Did you mean 'sst'\?")
+    twice = text.replace('name = "b"\ngrid = "sst"\nstat = "avg"', 'name = "a"\ngrid = "sst"')
+    p = _project(tmp_path, twice)
+    last = max(i for i, line in enumerate(twice.splitlines(), 1) if line == 'name = "a"')
+    with pytest.raises(InputError, match=f"line {last}: covariate name 'a' is used twice"):
+        load_project(p)
+
+
+def test_syntax_error_and_missing_section(tmp_path: Path) -> None:
+    text = BASE.replace('method = "REML"', "method = REML")
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"not valid TOML: .*line {_line_of(text, 'method =')}"):
+        load_project(p)
+    p = _project(tmp_path, "[model]\nmethod = 'ML'\n")
+    with pytest.raises(InputError, match=r"needs a \[studies\] section"):
+        load_project(p)
+    p = _project(tmp_path, '[studies]\nstudy = "s"\n')
+    with pytest.raises(InputError, match=r"line 1: \[studies\] needs the key 'path'"):
+        load_project(p)
+    with pytest.raises(InputError, match=r"no such file"):
+        load_project(tmp_path / "missing.toml")
+
+
+def test_column_missing_from_table_names_key_and_line(tmp_path: Path) -> None:
+    text = BASE.replace('lon = "lon"', 'lon = "long"')
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'lon = ')}: the key 'locate\.lon' names column 'long', "
+                                         r"which the studies table .* does not have\. "
+                                         r"Did you mean 'lon'\?"):
+        run_project(p, progress=False)
+
+
+def test_run_without_grids_end_to_end_and_force(tmp_path: Path) -> None:
+    p = _project(tmp_path)
+    result = run_project(p, progress=False)
+    out = tmp_path / "envlink-out"
+    assert result.out == out
+    t = result.table
+    assert len(t) == 6 and list(t.columns[:7]) == ["study", "lat", "lon", "when", "sick", "seen",
+                                                    "depth"]
+    assert t["locate_status"].tolist()[-1] == "rejected"
+    assert t["fit_included"].tolist() == [True] * 5 + [False]
+    assert result.fit_rows == 5
+    # the fit is the same as fitting the located rows directly (reference: the
+    # MetaRegression stage itself on the same rows, depth as a number)
+    used = t.iloc[:5].assign(depth=lambda d: d["depth"].astype(float))
+    direct = envlink.MetaRegression(moderators="depth", method="REML", test="knapp-hartung").fit(
+        used, effect="effect", variance="variance")
+    got = json.loads((out / "fit.json").read_text())
+    np.testing.assert_allclose([c["estimate"] for c in got["coefficients"]],
+                               [c["estimate"] for c in direct.to_dict()["coefficients"]],
+                               rtol=1e-10)  # fmt: skip
+    desc = json.loads((out / "datapackage.json").read_text())
+    assert desc["envlink"]["project_sha256"] == file_sha256(p)
+    back = pd.read_parquet(out / "enriched.parquet")
+    assert back["study"].tolist() == ["A", "A", "B", "B", "C", "C"]
+    before = (out / "enriched.csv").read_bytes()
+    with pytest.raises(InputError, match=r"Output exists.*enriched\.csv.*--force"):
+        run_project(p, progress=False)
+    assert (out / "enriched.csv").read_bytes() == before
+    again = run_project(p, progress=False, force=True, out=out)
+    assert again.fit_rows == 5
+
+
+def test_cli_run_exit_codes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    p = _project(tmp_path)
+    assert main(["run", str(p), "--out", str(tmp_path / "o"), "--no-progress"]) == 0
+    captured = capsys.readouterr()
+    assert "enriched.csv" in captured.out and "located: 5 ok, 0 flagged, 1 rejected" in captured.err
+    text = BASE.replace('test = "knapp-hartung"', 'test = "kh"')
+    bad = _project(tmp_path, text, name="bad.toml")
+    assert main(["run", str(bad)]) == 2
+    assert f"line {_line_of(text, 'test = ')}: the key 'model.test'" in capsys.readouterr().err
+    assert main(["run", str(p), "--out", str(tmp_path / "o")]) == 2  # exists, no --force
+    assert "--force" in capsys.readouterr().err
