@@ -277,7 +277,7 @@ class Gazetteer:
         )
 
 
-def _pick(columns: Sequence[str], given: str | None, choices: Sequence[str], what: str, source: str) -> str | None:
+def _pick(columns: Sequence[str], given: str | None, choices: Sequence[str], source: str) -> str | None:
     if given is not None:
         if given not in columns:
             raise InputError(
@@ -303,11 +303,11 @@ def _entries_from_table(df: pd.DataFrame, source: str, name_col: str | None, lat
 
     cols = [str(c) for c in df.columns]
     df = df.set_axis(cols, axis=1)
-    name = _pick(cols, name_col, NAME_COLUMNS, "name", source)
-    lat = _pick(cols, lat_col, LAT_COLUMNS, "latitude", source)
-    lon = _pick(cols, lon_col, LON_COLUMNS, "longitude", source)
-    coords = _pick(cols, coords_col, COORDS_COLUMNS, "coordinates", source) if not (lat and lon) else None
-    prec = _pick(cols, precision_col, PRECISION_COLUMNS, "precision", source)
+    name = _pick(cols, name_col, NAME_COLUMNS, source)
+    lat = _pick(cols, lat_col, LAT_COLUMNS, source)
+    lon = _pick(cols, lon_col, LON_COLUMNS, source)
+    coords = _pick(cols, coords_col, COORDS_COLUMNS, source) if not (lat and lon) else None
+    prec = _pick(cols, precision_col, PRECISION_COLUMNS, source)
     listing = ", ".join(repr(c) for c in cols)
     if name is None:
         raise InputError(
@@ -360,13 +360,13 @@ def _entries_from_geo(gdf: Any, source: str, name_col: str | None, precision_col
     from pyproj import Geod
 
     cols = [str(c) for c in gdf.columns if c != gdf.geometry.name]
-    name = _pick(cols, name_col, NAME_COLUMNS, "name", source)
+    name = _pick(cols, name_col, NAME_COLUMNS, source)
     if name is None:
         raise InputError(
             f"Gazetteer {source} has no site-name column (looked for {', '.join(NAME_COLUMNS)}); "
             f"name it with name_col=. Columns: {', '.join(repr(c) for c in cols)}."
         )
-    prec = _pick(cols, precision_col, PRECISION_COLUMNS, "precision", source)
+    prec = _pick(cols, precision_col, PRECISION_COLUMNS, source)
     if gdf.crs is None:
         bounds = gdf.total_bounds
         if np.isfinite(bounds).all() and (abs(bounds[1]) > 90 or abs(bounds[3]) > 90):
