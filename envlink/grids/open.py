@@ -15,6 +15,7 @@ import importlib.util
 import json
 import os
 import sys
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any, Literal
@@ -72,14 +73,58 @@ def resolve_paths(source: str | os.PathLike[str] | Sequence[str | os.PathLike[st
     return out
 
 
+def _zarr_consolidated(path: Path) -> bool:
+    if (path / ".zmetadata").exists():
+        return True
+    meta = path / "zarr.json"
+    if meta.exists():
+        try:
+            return bool(json.loads(meta.read_text()).get("consolidated_metadata"))
+        except (OSError, ValueError):
+            return False
+    return False
+
+
 def _chunks(chunks: Any) -> Any:
     if isinstance(chunks, str) and chunks == "auto":
         return "auto" if importlib.util.find_spec("dask") is not None else None
     return chunks
 
 
+def check_classic_size(path: Path) -> None:
+    """Reject a classic netCDF file (CDF-1/CDF-2) shorter than its header says it is.
+
+    The netCDF library opens such a truncated file without complaint and reads the
+    missing part as zeros, so the check maps the file (nothing is read) with
+    scipy's independent reader of the classic format, which verifies that every
+    variable's data lie inside the file.
+    """
+    try:
+        with open(path, "rb") as f:
+            magic = f.read(4)
+    except OSError as exc:
+        raise GridError(f"Cannot read the grid file {str(path)!r}: {exc.strerror or exc}") from None
+    if magic not in (b"CDF\x01", b"CDF\x02"):
+        return
+    from scipy.io import netcdf_file
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # scipy: "cannot close ... mmap"
+            with netcdf_file(path, "r", mmap=True) as nc:
+                for var in nc.variables.values():
+                    _ = var.data.shape
+    except Exception as exc:  # noqa: BLE001 - any failure means the header and size disagree
+        raise GridError(
+            f"The netCDF file {str(path)!r} is truncated or corrupt: its header describes more "
+            f"data than the file's {path.stat().st_size} bytes hold ({type(exc).__name__})."
+        ) from None
+
+
 def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> xr.Dataset:
     """Open a netCDF file or Zarr store without any CF decoding, naming the path on failure."""
+    if not _is_zarr(path):
+        check_classic_size(path)
     kwargs: dict[str, Any] = {
         "decode_cf": False,
         "mask_and_scale": False,
@@ -88,6 +133,7 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
     }
     if _is_zarr(path):
         kwargs["engine"] = "zarr"
+        kwargs["consolidated"] = _zarr_consolidated(path)
     elif engine is not None:
         kwargs["engine"] = engine
     try:

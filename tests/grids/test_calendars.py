@@ -13,11 +13,11 @@ import cftime
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
+from reference.cf_conventions import FEBRUARY_DAYS, YEAR_DAYS_2000
 
 from envlink import InputError, open_grid
 from envlink.grids.timeaxis import CF_CALENDARS, STANDARD_CALENDARS
 from grids._writers import simple_grid
-from reference.cf_conventions import FEBRUARY_DAYS, YEAR_DAYS_2000
 
 LAT = np.array([0.5, 1.5])
 LON = np.array([10.5, 11.5])

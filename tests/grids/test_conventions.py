@@ -14,11 +14,11 @@ import numpy as np
 import pytest
 import xarray as xr
 from numpy.testing import assert_allclose, assert_array_equal
+from reference.cf_conventions import KELVIN_AT_ZERO_CELSIUS, cf_unpack
 
 from envlink import open_grid
 from envlink.grids import ValidRangeWarning
 from grids._writers import simple_grid
-from reference.cf_conventions import KELVIN_AT_ZERO_CELSIUS, cf_unpack
 
 LAT = np.array([-10.0, 0.0, 10.0])
 LON = np.array([-170.0, -60.0, 50.0, 160.0])
