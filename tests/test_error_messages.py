@@ -116,6 +116,18 @@ def test_gazetteer_without_crs_in_metres() -> None:
         read_gazetteer(gdf)
 
 
+def test_gazetteer_point_beyond_90_degrees() -> None:
+    gdf = gpd.GeoDataFrame({"name": ["Odd Pt"]}, geometry=[Point(10, 95)], crs="EPSG:4326")
+    with pytest.raises(InputError, match=r"feature 1 \(site 'Odd Pt'\): latitude 95 is beyond ±90; is the file's coordinate"):
+        read_gazetteer(gdf)
+
+
+def test_gazetteer_bad_precision_value() -> None:
+    df = pd.DataFrame({"name": ["Kestrel Reef"], "lat": ["-8.5"], "lon": ["160"], "precision_km": ["about 2"]})
+    with pytest.raises(InputError, match=r"row 1 \(site 'Kestrel Reef'\): precision 'about 2' in column 'precision_km' is not a number of km"):
+        read_gazetteer(df)
+
+
 def test_site_not_found_names_the_closest() -> None:
     gz = read_gazetteer(pd.DataFrame({"name": ["Kestrel Reef"], "lat": ["-8.5"], "lon": ["160.25"]}))
     with pytest.raises(SiteNameError, match=r"site 'Kestrel': not in \(table\); the closest is 'Kestrel Reef' \(score \d+ < threshold 85\)"):

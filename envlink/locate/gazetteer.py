@@ -388,7 +388,19 @@ def _entries_from_geo(gdf: Any, source: str, name_col: str | None, precision_col
             raise InputError(f"{where} (site {site!r}): the geometry is empty.")
         precision = math.nan
         if prec is not None and _text(gdf[prec].iloc[i]):
-            precision = float(_text(gdf[prec].iloc[i]).replace(",", "."))
+            try:
+                precision = float(_text(gdf[prec].iloc[i]).replace(",", "."))
+            except ValueError:
+                raise InputError(
+                    f"{where} (site {site!r}): precision {_text(gdf[prec].iloc[i])!r} in column "
+                    f"{prec!r} is not a number of km."
+                ) from None
+        _, miny, _, maxy = geom.bounds
+        if not (-90.0 <= miny and maxy <= 90.0):
+            raise InputError(
+                f"{where} (site {site!r}): latitude {miny if miny < -90 else maxy:g} is beyond ±90; "
+                "is the file's coordinate reference system stated correctly?"
+            )
         kind = geom.geom_type
         if kind == "Point":
             entries.append(_Entry(site, float(geom.y), _wrap_lon(geom.x), None, precision, ()))
