@@ -106,7 +106,8 @@ class _Reader:
                              plain_south=self.plain_south, mapping=self.mapping)
         if season is not None:
             return Period(season.start, season.end, "season", season.flags, season.notes)
-        for form in (self._split_year, self._iso_interval, self._single, self._range):
+        for form in (self._split_year, self._iso_interval, self._decade_or_quarter, self._single,
+                     self._range):
             period = form(norm, order)
             if period is not None:
                 return period
@@ -131,12 +132,23 @@ class _Reader:
         start, end, precision = inner.start, inner.end, inner.precision
         if precision == "day" and start is not None and end is not None:
             start, end, precision = start.replace(day=1), month_end(end), "month"
-        unit = {"years": "years", "season": "season"}.get(str(precision), f"{precision}")
+        unit = {"years": "range of years"}.get(str(precision), str(precision))
         note = (f"{self.raw.strip()!r} is qualified ({qualifier.strip()!r}); the window is the whole "
                 f"{unit} it names, not a guessed part of it")
         if start is not None:
             note += f" ({start}..{end})"
         return Period(start, end, precision, ("vague_qualifier", *inner.flags), (note, *inner.notes))
+
+    def _decade_or_quarter(self, norm: str, order: Order | None) -> Period | None:
+        if m := re.fullmatch(r"(?:the )?(\d{3})0'?s", norm):
+            first = int(m.group(1)) * 10
+            return Period(dt.date(first, 1, 1), dt.date(first + 9, 12, 31), "years", ())
+        m = re.fullmatch(r"q([1-4])[ \-]?(\d{4})|(\d{4})[ \-]?q([1-4])", norm)
+        if m is None:
+            return None
+        quarter, year = (int(m.group(1)), int(m.group(2))) if m.group(1) else (int(m.group(4)), int(m.group(3)))
+        first = dt.date(year, 3 * quarter - 2, 1)
+        return Period(first, month_end(dt.date(year, 3 * quarter, 1)), "month", ())
 
     def _split_year(self, norm: str, order: Order | None) -> Period | None:
         m = re.fullmatch(r"(\d{4})/(\d{2}|\d{4})", norm)

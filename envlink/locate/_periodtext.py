@@ -125,6 +125,7 @@ def normalise(text: str) -> str:
     out = re.sub(r"^from ", "", out)
     out = re.sub(r" (?:to|until|till|through|thru) ", " - ", out)
     out = re.sub(r" ?- ?", "-", out)
+    out = re.sub(r" ?/ ?", "/", out)
     return out
 
 
@@ -161,7 +162,8 @@ _ISO_FORMS = [
     ("y", re.compile(r"(?P<y>\d{4})")),
 ]
 _OTHER_FORMS = [
-    ("ymd", re.compile(r"(?P<y>\d{4})(?P<sep>[/.])(?P<m>\d{1,2})(?P=sep)(?P<d>\d{1,2})")),
+    ("ymd", re.compile(r"(?P<y>\d{4})(?P<sep>[/.\-])(?P<m>\d{1,2})(?P=sep)(?P<d>\d{1,2})")),
+    ("ym", re.compile(r"(?P<y>\d{4})-(?P<m>\d)")),
     ("numeric", re.compile(r"(?P<a>\d{1,2})(?P<sep>[/.\-])(?P<b>\d{1,2})(?P=sep)(?P<y>\d{4})" + _NUM_TIME)),
     ("ym", re.compile(r"(?P<m>\d{1,2})[/.\-](?P<y>\d{4})")),
     ("ymd", re.compile(r"(?P<d>\d{1,2})" + _SEP + r"M(?P<m>\d\d)(?:" + _SEP + r"(?P<y>\d{4}))?")),

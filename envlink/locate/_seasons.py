@@ -33,7 +33,7 @@ NEEDS_MAPPING = frozenset({
 _HEMI_WORDS = {"austral": "austral", "southern": "austral", "boreal": "boreal", "northern": "boreal"}
 
 _HEMI = r"(?:(?P<hemi>austral|boreal|southern|northern)(?: hemisphere)? )?"
-_YEAR = r"(?P<year>\d{4})(?:/(?P<y2>\d{4}|\d{2}))?"
+_YEAR = r"(?P<year>\d{4})(?:[/-](?P<y2>\d{4}|\d{2}))?"
 _WORD = r"(?P<word>[a-z][a-z\-]*?)(?P<season>[ -]season)?"
 _SEASON_FORMS = (
     re.compile(r"(?:the )?" + _HEMI + _WORD + r"(?: of)? " + _YEAR),
@@ -54,6 +54,28 @@ class SeasonReading:
 def month_label(months: Sequence[int]) -> str:
     """``(12, 1, 2)`` -> ``'Dec-Feb'``."""
     return f"{MONTH_ABBR[months[0] - 1]}-{MONTH_ABBR[months[-1] - 1]}"
+
+
+_INITIALS = "jfmamjjasond"
+
+
+def month_initials(word: str) -> tuple[int, ...] | None:
+    """Months of a code of consecutive month initials (``djf``, ``jfm``, ``ndjfma``).
+
+    Common practice in climatology; a code must have 3 to 11 letters and occur once in
+    the cycle of initials.
+
+    >>> month_initials("djf"), month_initials("son"), month_initials("jam")
+    ((12, 1, 2), (9, 10, 11), None)
+    """
+    if not 3 <= len(word) <= 11:
+        return None
+    cycle = _INITIALS * 2
+    starts = {i % 12 for i in range(12) if cycle.startswith(word, i)}
+    if len(starts) != 1:
+        return None
+    first = starts.pop()
+    return tuple((first + k) % 12 + 1 for k in range(len(word)))
 
 
 def check_mapping(season_months: Mapping[str, Sequence[int]] | None) -> dict[str, tuple[int, ...]]:
@@ -143,8 +165,9 @@ def read_season(
     if word in mapping:
         start, end = season_window(mapping[word], year, year2, f"the {word} season", text, field)
         return SeasonReading(start, end)
-    if word in SEASON_CODES:
-        start, end = season_window(SEASON_CODES[word], year, year2, word.upper(), text, field)
+    code = month_initials(word)
+    if code is not None:
+        start, end = season_window(code, year, year2, word.upper(), text, field)
         return SeasonReading(start, end)
     if word in BOREAL:
         return _named_season(word, hemi, year, year2, text, field, hemisphere, plain_south)

@@ -195,6 +195,22 @@ CASES = [
     ("2011-03-05-09", {}, D(2011, 3, 5), D(2011, 3, 9), "day", ()),
     # ISO week date: the whole week, Monday to Sunday (from memory: §5.2.4)
     ("2011-W10", {}, D(2011, 3, 7), D(2011, 3, 13), "day", ()),
+    # season year written with a hyphen, as many papers do
+    ("austral summer 2011-12", {}, D(2011, 12, 1), D(2012, 2, 29), "season", ()),
+    # other runs of month initials (common practice in climatology): JFM
+    ("JFM 2012", {}, D(2012, 1, 1), D(2012, 3, 31), "season", ()),
+    # a six-month code across the year end belongs to the year of its January
+    ("NDJFMA 2012", {}, D(2011, 11, 1), D(2012, 4, 30), "season", ()),
+    # a decade: its ten whole years
+    ("1990s", {}, D(1990, 1, 1), D(1999, 12, 31), "years", ()),
+    # a vague decade: still the whole decade
+    ("early 1990s", {}, D(1990, 1, 1), D(1999, 12, 31), "years", ("vague_qualifier",)),
+    # a calendar quarter: three whole months
+    ("Q3 2011", {}, D(2011, 7, 1), D(2011, 9, 30), "month", ()),
+    # ISO-like date without zero padding
+    ("2011-3-5", {}, D(2011, 3, 5), D(2011, 3, 5), "day", ()),
+    # ISO interval with spaces around the solidus
+    ("2012-01-05 / 2012-01-09", {}, D(2012, 1, 5), D(2012, 1, 9), "day", ()),
     # integers from a numeric column are years
     (2011, {}, D(2011, 1, 1), D(2011, 12, 31), "year", ()),
     # a float year from a numeric column with blanks
