@@ -16,6 +16,8 @@ from dataclasses import dataclass
 from envlink.errors import InputError
 
 __all__ = [
+    "COORDINATE_ERRORS",
+    "COORDINATE_FLAGS",
     "KM_PER_DEGREE",
     "Angle",
     "CoordinateError",
@@ -24,6 +26,30 @@ __all__ = [
     "read_angle",
     "read_iso6709",
 ]
+
+#: QA flags set on a Coordinate that was read (the value is used), in plain words
+COORDINATE_FLAGS: dict[str, str] = {
+    "swapped_lat_lon": "latitude and longitude were written the other way round and were swapped",
+    "lon_0_360": "the longitude was written in 0-360 and was moved to [-180, 180)",
+    "crs_not_wgs84": "the ISO 6709 string names a CRS other than WGS 84; taken as WGS 84",
+}
+
+#: codes of CoordinateError (the value is rejected), in plain words
+COORDINATE_ERRORS: dict[str, str] = {
+    "missing_coordinate": "the coordinate is empty",
+    "unreadable_coordinate": "the text is not a coordinate in any accepted form",
+    "one_coordinate_only": "one coordinate found where both were expected",
+    "ambiguous_coordinate": "the text can be read as two different pairs; none was chosen",
+    "lat_out_of_range": "the latitude is beyond ±90",
+    "lon_out_of_range": "the longitude is beyond -180..360 (or beyond 180 with a letter)",
+    "sign_contradicts_hemisphere": "a sign contradicts the hemisphere letter",
+    "wrong_axis_letter": "a hemisphere letter belongs to the other axis",
+    "swapped_lat_lon_suggested": "the latitude and longitude columns look exchanged",
+    "minutes_ge_60": "minutes are 60 or more",
+    "seconds_ge_60": "seconds are 60 or more",
+    "negative_minutes": "minutes carry a minus sign",
+    "negative_seconds": "seconds carry a minus sign",
+}
 
 #: one degree of latitude arc on the IUGG mean sphere (R = 6371.0088 km), in km
 KM_PER_DEGREE = 6371.0088 * math.pi / 180.0

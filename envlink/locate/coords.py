@@ -23,6 +23,8 @@ from dataclasses import dataclass
 from typing import Literal
 
 from envlink.locate._coordforms import (
+    COORDINATE_ERRORS,
+    COORDINATE_FLAGS,
     KM_PER_DEGREE,
     Angle,
     CoordinateError,
@@ -33,6 +35,8 @@ from envlink.locate._coordforms import (
 )
 
 __all__ = [
+    "COORDINATE_ERRORS",
+    "COORDINATE_FLAGS",
     "KM_PER_DEGREE",
     "Coordinate",
     "CoordinateError",

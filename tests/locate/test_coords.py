@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 import pickle
 import re
+from pathlib import Path
 
 import pytest
 from numpy.testing import assert_allclose
@@ -19,6 +20,8 @@ from reference.iso6709 import ANNEX_H, HUMAN_FORMS
 import envlink
 from envlink.errors import InputError
 from envlink.locate.coords import (
+    COORDINATE_ERRORS,
+    COORDINATE_FLAGS,
     Coordinate,
     CoordinateError,
     parse_angle,
@@ -416,3 +419,20 @@ def test_iso6709_reference(case: dict) -> None:
     assert_allclose(got.precision_km, _UNIT_KM[case["unit"]] * 10.0 ** -case["decimals"],
                     rtol=1e-12)
     assert got.flags == ()
+
+
+# --- every flag and code is known and documented ---------------------------------------
+
+_DOC = Path(__file__).resolve().parents[2] / "docs" / "locate-coordinates.md"
+
+
+def test_every_tested_code_and_flag_is_listed() -> None:
+    assert {case[2] for case in ERRORS} <= set(COORDINATE_ERRORS)
+    assert {flag for case in PAIRS for flag in case[4]} <= set(COORDINATE_FLAGS)
+
+
+@pytest.mark.skipif(not _DOC.exists(), reason="docs/ not shipped with this install")
+def test_docs_page_lists_every_flag_and_code() -> None:
+    text = _DOC.read_text(encoding="utf-8")
+    for code in [*COORDINATE_FLAGS, *COORDINATE_ERRORS]:
+        assert f"`{code}`" in text, code

@@ -16,7 +16,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from envlink.locate.coords import parse_angle, parse_coordinates, parse_lat_lon
+from envlink.locate.coords import (
+    COORDINATE_ERRORS,
+    COORDINATE_FLAGS,
+    CoordinateError,
+    parse_angle,
+    parse_coordinates,
+    parse_lat_lon,
+)
 
 DEG = 6371.0088 * math.pi / 180.0  # Moritz (2000) mean radius; km per degree of arc
 UNIT_KM = (DEG, DEG / 60.0, DEG / 3600.0)
@@ -262,3 +269,25 @@ def test_unambiguous_swaps_are_swapped_and_flagged(
     tol = 0.5 * 10.0**-n + 1e-9
     assert abs(got.lat - lat) <= tol and abs(got.lon - lon) <= tol
     assert got.flags == ("swapped_lat_lon",)
+
+
+_ALPHABET = st.sampled_from(list("0123456789.,;:/ +-NSEWnsewlatoCR°'\"()[]") + [
+    "\u2212", "\u2013", "\u2032", "\u2033", "\u00ba", "''", "deg", "north", "lat ", "lon ",
+])
+
+
+@SETTINGS
+@given(pieces=st.lists(_ALPHABET, max_size=24))
+def test_any_text_gives_a_valid_point_or_a_coordinate_error(pieces: list[str]) -> None:
+    # no input may escape as another exception (a traceback for a CLI user) or a bad value
+    text = "".join(pieces)
+    for call in (lambda: parse_coordinates(text), lambda: parse_lat_lon(text, text)):
+        try:
+            got = call()
+        except CoordinateError as err:
+            assert err.code in COORDINATE_ERRORS and err.field in ("lat", "lon", "coords")
+            assert err.reason and err.code in str(err)
+        else:
+            assert -90.0 <= got.lat <= 90.0 and -180.0 <= got.lon < 180.0
+            assert math.isfinite(got.precision_km) and got.precision_km > 0
+            assert set(got.flags) <= set(COORDINATE_FLAGS)
