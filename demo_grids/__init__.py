@@ -5,7 +5,8 @@ were made by the seeded generator :mod:`envlink.demo_grids.generate`, which also
 plants the relation that the demo's meta-regression recovers (see ``README.md``).
 
 Files: ``vell_sst_monthly.nc``, ``vell_sst_daily.nc``, ``vell_air_monthly.nc``,
-``vell_studies.csv``, ``vell_reefs.gpkg``, ``vell_reefs.csv`` and ``demo.toml``.
+``vell_studies.csv``, ``vell_reefs.gpkg``, ``vell_reefs.csv``, ``vell_truth.json`` (what
+the generator knows: planted values, true windows and anomalies) and ``demo.toml``.
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ DEMO_FILES = (
     "vell_studies.csv",
     "vell_reefs.gpkg",
     "vell_reefs.csv",
+    "vell_truth.json",
     "demo.toml",
 )
 

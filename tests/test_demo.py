@@ -1,0 +1,144 @@
+"""The bundled invented demo end to end: the fit recovers the relation the generator planted.
+
+References: the planted values are those the seeded generator drew the counts from
+(``envlink.demo_grids.generate.PLANTED``, stated in ``demo_grids/README.md``), and the
+generator's own window-mean SST anomalies (``vell_truth.json``), computed there with
+plain NumPy on the unmasked field, independently of the extract stage. Outputs are
+read back with ``frictionless.validate``, ``pyarrow`` and ``geopandas``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from envlink.demo_grids import DEMO_FILES, data_path
+from envlink.demo_grids.generate import PLANTED
+
+from envlink.cli import main
+from envlink.project import RunResult, run_demo
+from envlink.tables import read_table
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory: pytest.TempPathFactory) -> RunResult:
+    return run_demo(tmp_path_factory.mktemp("demo") / "out", progress=False)
+
+
+def test_fitted_slope_recovers_the_planted_relation(demo: RunResult) -> None:
+    d = demo.fit.to_dict()
+    slope = next(c for c in d["coefficients"] if c["term"] == "sst_anom")
+    b = PLANTED["slope_per_degC"]  # 0.9 per degC, planted by the generator
+    assert slope["ci_low"] <= b <= slope["ci_high"], slope
+    assert slope["ci_high"] - slope["ci_low"] < 0.5  # informative, not a vacuous interval
+    intercept = next(c for c in d["coefficients"] if c["term"] == "intercept")
+    assert intercept["ci_low"] <= PLANTED["intercept"] <= intercept["ci_high"]
+    assert d["test"] == "t" and d["k"] == demo.fit_rows == 73
+
+
+def test_every_input_row_and_column_in_order(demo: RunResult) -> None:
+    studies = read_table(data_path("vell_studies.csv"), as_text=True)
+    t = demo.table
+    assert len(t) == len(studies) == 76
+    assert list(t.columns[: studies.shape[1]]) == list(studies.columns)
+    pd.testing.assert_frame_equal(t[list(studies.columns)].astype(str), studies.astype(str))
+    for c in ("sst_anom", "dhw_max", "air_lag3m"):
+        assert {c, f"{c}_flags", f"{c}_distance_km", f"{c}_coverage"} <= set(t.columns)
+    assert demo.windows_tried == 3
+
+
+def test_deliberately_bad_rows_are_rejected_or_flagged(demo: RunResult) -> None:
+    t = demo.table.set_index("notes")
+    assert t.loc["latitude impossible as printed", "locate_status"] == "rejected"
+    assert t.loc["site not in any gazetteer; no coordinates", "locate_status"] == "rejected"
+    assert t.loc["no sampling date reported", "locate_status"] != "ok"
+    swapped = t.loc["latitude and longitude printed in swapped columns"]
+    assert "swapped_lat_lon" in swapped["locate_flags"]
+    assert not demo.table.loc[demo.table["locate_status"] == "rejected", "fit_included"].any()
+
+
+def test_attached_anomaly_matches_the_generators_own(demo: RunResult) -> None:
+    truth = json.loads(data_path("vell_truth.json").read_text())
+    x = pd.Series([r["sst_anomaly"] for r in truth["rows"]], dtype=float)
+    got = demo.table["sst_anom"].astype(float)
+    both = x.notna() & got.notna()
+    assert both.sum() == 73
+    diff = (got[both] - x[both]).abs()
+    # nearest-valid cells of coastal reefs differ from the generator's unmasked cell
+    # by the cell noise only (SD 0.05 degC): the typical difference is tiny
+    assert float(diff.median()) < 0.01
+    assert np.corrcoef(got[both], x[both])[0, 1] > 0.98
+    # land-masked reefs are moved to the nearest valid cell and say so
+    assert demo.table["sst_anom_flags"].astype(str).str.contains("nearest_valid").any()
+
+
+def test_outputs_written_and_read_back(demo: RunResult) -> None:
+    frictionless = pytest.importorskip("frictionless")
+    gpd = pytest.importorskip("geopandas")
+    out = demo.out
+    for name in ("vell_enriched.csv", "datapackage.json", "vell_enriched.parquet",
+                 "vell_enriched.gpkg", "fit.json", "fit.txt", "report.html"):  # fmt: skip
+        assert (out / name).is_file(), name
+    report = frictionless.validate(str(out / "datapackage.json"))
+    assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])
+    desc = json.loads((out / "datapackage.json").read_text())
+    assert desc["envlink"]["covariates"]["sst_anom"]["baseline"] == "1991-2020"
+    assert len(desc["envlink"]["project_sha256"]) == 64
+    csv = pd.read_csv(out / "vell_enriched.csv", keep_default_na=False, na_values=[""])
+    pq = pd.read_parquet(out / "vell_enriched.parquet")
+    np.testing.assert_allclose(pq["sst_anom"].to_numpy(float), csv["sst_anom"].to_numpy(float),
+                               rtol=1e-15, atol=0, equal_nan=True)  # fmt: skip
+    g = gpd.read_file(out / "vell_enriched.gpkg")
+    assert len(g) == 76
+    regions = g["reef"].isin(["Vell Mor Lagoon", "Tarrin Barrier", "Osk Shoals"])
+    assert set(g.loc[regions].geometry.geom_type) == {"Polygon"}
+    html = (out / "report.html").read_text()
+    assert html.count("<img") >= 5 and "Vell Archipelago" in html
+
+
+def test_rerun_reuses_the_extraction_cache(demo: RunResult, capsys) -> None:
+    assert any((demo.out / ".cache").iterdir())
+    code = main(["demo", "--out", str(demo.out), "--force", "--no-progress"])
+    assert code == 0
+    desc = json.loads((demo.out / "datapackage.json").read_text())
+    assert {v["cache"] for v in desc["envlink"]["covariates"].values()} == {"hit"}
+    assert "sst_anom" in capsys.readouterr().err
+    again = pd.read_csv(demo.out / "vell_enriched.csv")
+    np.testing.assert_allclose(again["sst_anom"].to_numpy(float),
+                               demo.table["sst_anom"].to_numpy(float), rtol=1e-12, equal_nan=True)
+    assert main(["demo", "--out", str(demo.out), "--no-progress"]) == 2  # exists, no --force
+
+
+def test_generator_is_reproducible_and_used_when_files_are_missing(tmp_path: Path,
+                                                                  monkeypatch) -> None:
+    import envlink.demo_grids as demo_grids
+
+    from envlink.project import _demo_project_dir
+
+    monkeypatch.setattr(demo_grids, "data_path", lambda name: tmp_path / "absent" / name)
+    folder, tmp = _demo_project_dir()
+    try:
+        assert tmp is not None
+        for name in DEMO_FILES:
+            assert (folder / name).is_file(), name
+        assert (folder / "vell_studies.csv").read_bytes() == data_path("vell_studies.csv").read_bytes()
+        assert (folder / "demo.toml").read_text() == data_path("demo.toml").read_text()
+        with xr.open_dataset(folder / "vell_sst_monthly.nc") as a, \
+                xr.open_dataset(data_path("vell_sst_monthly.nc")) as b:
+            xr.testing.assert_identical(a, b)
+    finally:
+        if tmp is not None:
+            tmp.cleanup()
+
+
+def test_demo_grids_are_small_and_say_they_are_invented() -> None:
+    total = sum(data_path(n).stat().st_size for n in DEMO_FILES)
+    assert total < 15 * 2**20
+    for name in ("vell_sst_monthly.nc", "vell_sst_daily.nc", "vell_air_monthly.nc"):
+        with xr.open_dataset(data_path(name)) as ds:
+            assert "Invented" in ds.attrs["comment"] and "generate" in ds.attrs["source"]
+    assert len(read_table(data_path("vell_studies.csv"))) >= 60
