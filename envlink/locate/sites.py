@@ -95,10 +95,11 @@ def _text(value: Any) -> str:
     return str(value)
 
 
-def _explain(flags: Sequence[str], where: str, given: Sequence[str] = ()) -> tuple[str, ...]:
+def _explain(flags: Sequence[str], where: str, given: Sequence[str] = (),
+             meanings: Mapping[str, str] = FLAG_MEANINGS) -> tuple[str, ...]:
     if given:
         return tuple(f"{where}: {note}" for note in given)
-    return tuple(f"{where}: {FLAG_MEANINGS.get(f, f.replace('_', ' '))}." for f in flags)
+    return tuple(f"{where}: {meanings.get(f, f.replace('_', ' '))}." for f in flags)
 
 
 def _error_flag(exc: InputError, fallback: str) -> tuple[str, str]:
@@ -115,6 +116,7 @@ class _Resolver:
         from envlink.locate import coords, periods
 
         self.coords, self.periods = coords, periods
+        self.coord_meanings = {**FLAG_MEANINGS, **getattr(coords, "COORDINATE_FLAGS", {})}
         self.cols = cols
         self.gazetteer = gazetteer
         self.period_options = period_options
@@ -177,7 +179,7 @@ class _Resolver:
         if not -180.0 <= lon < 180.0:  # the parser promises [-180, 180); make sure of it
             lon = (lon + 180.0) % 360.0 - 180.0
         return _Site(float(value.lat), lon, float(value.precision_km), None,
-                     tuple(value.flags), _explain(value.flags, where))
+                     tuple(value.flags), _explain(value.flags, where, meanings=self.coord_meanings))
 
     def _lat_lon(self, lat: str, lon: str) -> _Site:
         c = self.cols
