@@ -1,0 +1,203 @@
+"""Spatial rules: nearest, bilinear, nearest-valid, buffer, polygon; curvilinear and projected grids."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyproj
+import shapely
+from numpy.testing import assert_allclose
+from shapely.geometry import Polygon
+
+from envlink.extract.attach import attach
+from envlink.geo import cell_area_km2, great_circle_km
+from envlink.testing import make_grid
+
+from ._grids import curvilinear, projected, table
+
+GLOBAL_LAT = np.arange(-89.5, 90.0, 1.0)
+GLOBAL_LON = np.arange(-179.5, 180.0, 1.0)
+
+
+def test_nearest_flags_outside_points_never_an_edge_cell():
+    g = make_grid(lat=[0.5, 1.5], lon=[10.5, 11.5], periods=2, seed=1)
+    t = table([1.99, 2.01, 0.0, 1.0], [11.99, 11.5, 10.0, 9.99], "2000-01-01", "2000-01-31")
+    out = attach(t, g, name="v")
+    assert_allclose(out["v"][:1], [g.values[0, 1, 1]], rtol=1e-12)
+    assert out["v_flags"].tolist() == ["", "outside_grid", "", "outside_grid"]
+    assert np.isnan(out["v"][1]) and np.isnan(out["v"][3])
+    # the edge itself belongs to the grid (its lowest corner cell)
+    assert_allclose(out["v"][2], g.values[0, 0, 0], rtol=1e-12)
+
+
+def test_nearest_float64_ties_and_distance():
+    # a site exactly on the edge between two cells goes to the upper cell, in float64
+    lat = np.array([0.125, 0.375], dtype=np.float32).astype(np.float64)
+    g = make_grid(lat=lat, lon=[0.125], periods=1, seed=2)
+    out = attach(table([0.25], [0.125], "2000-01-01", "2000-01-31"), g, name="v")
+    assert out["v_cell_lat"][0] == 0.375
+    # distance: great-circle km from the site to the cell centre (closed form R·Δφ)
+    assert_allclose(out["v_distance_km"][0], 6371.0088 * np.radians(0.125), rtol=1e-9)
+
+
+def test_global_grid_wraps_longitudes():
+    g = make_grid(lat=GLOBAL_LAT, lon=GLOBAL_LON, periods=1, seed=3)
+    out = attach(table([0.2, 0.2], [179.99, -180.0], "2000-01-01", "2000-01-31"), g, name="v")
+    assert out["v_cell_lon"].tolist() == [179.5, -179.5]
+    assert out["v_flags"].tolist() == ["", ""]
+
+
+def test_bilinear_exact_on_linear_field():
+    lat, lon = np.arange(0.0, 5.0), np.arange(10.0, 16.0)
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    field = 3.0 + 2.0 * la - 0.5 * lo  # linear: bilinear interpolation reproduces it exactly
+    g = make_grid(np.stack([field, field + 1.0]), lat=lat, lon=lon)
+    rng = np.random.default_rng(5)
+    slat, slon = rng.uniform(0.0, 4.0, 30), rng.uniform(10.0, 15.0, 30)
+    out = attach(table(slat, slon, "2000-01-01", "2000-01-31"), g, name="v", spatial="bilinear")
+    assert_allclose(out["v"], 3.0 + 2.0 * slat - 0.5 * slon, rtol=1e-12)
+    assert (out["v_flags"] == "").all()
+
+
+def test_bilinear_wraps_across_the_antimeridian():
+    # field equal to the unwrapped longitude near 180°: cells at 179.5 (value 179.5)
+    # and -179.5 (value 180.5); a site at 179.9 lies 0.4 of the way: 179.9
+    la, lo = np.meshgrid(GLOBAL_LAT, GLOBAL_LON, indexing="ij")
+    field = np.where(lo < 0, lo + 360.0, lo)
+    g = make_grid(field[None], lat=GLOBAL_LAT, lon=GLOBAL_LON)
+    out = attach(table([0.5, 0.5], [179.9, -179.9], "2000-01-01", "2000-01-31"), g, name="v", spatial="bilinear")
+    assert_allclose(out["v"], [179.9, 180.1], rtol=1e-12)
+
+
+def test_bilinear_missing_neighbour_renormalised_and_flagged():
+    v = np.array([[[1.0, 2.0], [3.0, np.nan]]])
+    g = make_grid(v, lat=[0.0, 1.0], lon=[0.0, 1.0])
+    out = attach(table([0.5], [0.5], "2000-01-01", "2000-01-31"), g, name="v", spatial="bilinear")
+    # weights 1/4 each; the missing one dropped and the rest renormalised: (1+2+3)/3
+    assert_allclose(out["v"], [2.0], rtol=1e-12)
+    assert out["v_flags"][0] == "bilinear_missing_neighbour"
+
+
+def _coast_grid():
+    lat = np.arange(-4.875, 5.0, 0.25)
+    lon = np.arange(-4.875, 5.0, 0.25)
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    field = 25.0 + 0.1 * la + 0.01 * lo
+    vals = np.repeat(field[None], 24, axis=0)
+    vals[:, :, lon > 0.0] = np.nan  # land east of 0°
+    # one ocean cell that has data only in the first year
+    vals[12:, 20, 19] = np.nan
+    return make_grid(vals, lat=lat, lon=lon), lat, lon
+
+
+def test_nearest_valid_moves_coastal_sites_and_says_how_far():
+    g, lat, lon = _coast_grid()
+    t = table([1.1, 1.1, 1.1, 0.125], [0.05, 2.0, -0.2, -0.1],
+              ["2000-01-01", "2000-01-01", "2000-01-01", "2001-03-01"],
+              ["2000-12-31", "2000-12-31", "2000-12-31", "2001-05-31"])
+    out = attach(t, g, name="v", spatial="nearest-valid:30km")
+    # row 0: on land at 0.05°E; the nearest ocean centre is (1.125, -0.125), ~19.5 km
+    assert_allclose(out["v_cell_lat"][0], 1.125, rtol=0, atol=0)
+    assert_allclose(out["v_cell_lon"][0], -0.125, rtol=0, atol=0)
+    d = float(great_circle_km(1.1, 0.05, 1.125, -0.125))
+    assert_allclose(out["v_distance_km"][0], d, rtol=1e-9)
+    assert out["v_flags"][0] == f"nearest_valid_{round(d)}km"
+    assert_allclose(out["v"][0], 25.0 + 0.1 * 1.125 - 0.01 * 0.125, rtol=1e-12)
+    # row 1: 2°E is more than 30 km from any ocean cell
+    assert np.isnan(out["v"][1]) and out["v_flags"][1] == "no_valid_cell_within_30km"
+    # row 2: already on an ocean cell: no flag
+    assert out["v_flags"][2] == "" and out["v_cell_lon"][2] == -0.125
+    # row 3: its cell (0.125, -0.125) has data only in 2000; valid means data in the
+    # row's own window, so a neighbour is used
+    assert out["v_flags"][3].startswith("nearest_valid_")
+    assert (out["v_cell_lat"][3], out["v_cell_lon"][3]) != (0.125, -0.125)
+    assert out["v_coverage"][3] == 1.0
+
+
+def test_buffer_area_weighted_mean():
+    lat = np.arange(40.125, 45.0, 0.25)
+    lon = np.arange(0.125, 5.0, 0.25)
+    g = make_grid(lat=lat, lon=lon, periods=1, seed=7)
+    out = attach(table([42.3], [2.2], "2000-01-01", "2000-01-31"), g, name="v", spatial="buffer:30km")
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    inside = great_circle_km(42.3, 2.2, la, lo) <= 30.0
+    # weights: exact spherical cell areas, closed form R²Δλ(sin φ₂ − sin φ₁)
+    w = cell_area_km2(la - 0.125, la + 0.125, 0.25)
+    expected = np.sum(g.values[0][inside] * w[inside]) / np.sum(w[inside])
+    assert_allclose(out["v"], [expected], rtol=1e-12)
+    small = attach(table([42.3], [2.2], "2000-01-01", "2000-01-31"), g, name="v", spatial="buffer:1km")
+    assert small["v_flags"][0] == "buffer_smaller_than_cell"
+
+
+def test_polygon_rule_area_weights_against_shapely_laea():
+    lat = np.arange(-1.75, 2.0, 0.5)
+    lon = np.arange(30.25, 34.0, 0.5)
+    g = make_grid(lat=lat, lon=lon, periods=1, seed=8)
+    poly = Polygon([(30.7, -0.9), (32.3, -0.6), (31.9, 0.8), (30.9, 0.4)])
+    t = table([0.0, 1.0], [31.5, 33.0], "2000-01-01", "2000-01-31", site_wkt=[poly.wkt, ""])
+    out = attach(t, g, name="v", spatial="polygon")
+    # reference weights: shapely intersection areas on a pyproj LAEA (equal-area) projection
+    laea = pyproj.Transformer.from_crs("EPSG:4326", "+proj=laea +lat_0=0 +lon_0=31.5 +R=6371008.8", always_xy=True)
+
+    def to(geom):
+        geom = shapely.segmentize(geom, 0.01)
+        return shapely.transform(geom, lambda xy: np.column_stack(laea.transform(xy[:, 0], xy[:, 1])))
+
+    p = to(poly)
+    num = den = 0.0
+    for j, a in enumerate(lat):
+        for i, b in enumerate(lon):
+            area = p.intersection(to(shapely.box(b - 0.25, a - 0.25, b + 0.25, a + 0.25))).area
+            num += area * g.values[0, j, i]
+            den += area
+    assert_allclose(out["v"][0], num / den, rtol=1e-4)
+    # a point site under the polygon rule uses its nearest cell, flagged
+    assert out["v_flags"][1] == "point_site_nearest_cell"
+
+
+def test_polygon_across_antimeridian_and_smaller_than_cell():
+    g = make_grid(np.broadcast_to(np.where(GLOBAL_LON > 0, 1.0, 3.0), (1, 180, 360)).copy(), lat=GLOBAL_LAT, lon=GLOBAL_LON)
+    across = Polygon([(179.5, 10.2), (-179.5, 10.2), (-179.5, 10.8), (179.5, 10.8)])
+    tiny = Polygon([(20.1, 5.1), (20.2, 5.1), (20.2, 5.2), (20.1, 5.2)])
+    t = table([10.5, 5.15], [180.0 - 1e-9, 20.15], "2000-01-01", "2000-01-31", site_wkt=[across.wkt, tiny.wkt])
+    out = attach(t, g, name="v", spatial="polygon")
+    # half the polygon in the 179.5°E column (value 1), half in -179.5° (value 3)
+    assert_allclose(out["v"][0], 2.0, rtol=1e-9)
+    assert out["v_flags"][1] == "polygon_smaller_than_cell"
+    assert_allclose(out["v"][1], 1.0, rtol=0, atol=0)
+
+
+def test_curvilinear_nearest_is_great_circle_nearest():
+    ny, nx = 15, 20
+    jj, ii = np.meshgrid(np.arange(ny), np.arange(nx), indexing="ij")
+    lat2 = -10.0 + 0.5 * jj + 0.1 * ii
+    lon2 = 120.0 + 0.5 * ii - 0.1 * jj
+    vals = np.random.default_rng(9).normal(20, 1, (2, ny, nx))
+    g = curvilinear(vals, lat2, lon2)
+    rng = np.random.default_rng(10)
+    slat, slon = rng.uniform(-8, -4, 25), rng.uniform(122, 127, 25)
+    out = attach(table(slat, slon, "2000-01-01", "2000-01-31"), g, name="v")
+    d = great_circle_km(slat[:, None], slon[:, None], lat2.ravel()[None], lon2.ravel()[None])
+    k = d.argmin(axis=1)  # brute force over every cell centre
+    assert_allclose(out["v"], vals[0].ravel()[k], rtol=1e-12)
+    assert_allclose(out["v_distance_km"], d.min(axis=1), rtol=1e-9)
+    far = attach(table([40.0], [10.0], "2000-01-01", "2000-01-31"), g, name="v")
+    assert far["v_flags"][0] == "outside_grid"
+
+
+def test_projected_grid_cell_containing_site():
+    crs = pyproj.CRS.from_proj4("+proj=laea +lat_0=50 +lon_0=10 +ellps=WGS84")
+    x = np.arange(-95_000.0, 100_000.0, 10_000.0)
+    y = np.arange(95_000.0, -100_000.0, -10_000.0)  # descending y, as many files store it
+    vals = np.random.default_rng(11).normal(10, 2, (1, y.size, x.size))
+    g = projected(vals, x, y, crs.to_wkt())
+    slat, slon = np.array([50.3, 49.4, 60.0]), np.array([10.2, 9.5, 10.0])
+    out = attach(table(slat, slon, "2000-01-01", "2000-01-31"), g, name="v")
+    fwd = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+    px, py = fwd.transform(slon[:2], slat[:2])
+    ix = np.floor((np.asarray(px) + 100_000.0) / 10_000.0).astype(int)
+    iy = np.floor((100_000.0 - np.asarray(py)) / 10_000.0).astype(int)
+    assert_allclose(out["v"][:2], vals[0, iy, ix], rtol=1e-12)
+    inv = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+    clon, clat = inv.transform(x[ix], y[iy])
+    assert_allclose(out["v_distance_km"][:2], great_circle_km(slat[:2], slon[:2], clat, clon), rtol=1e-9)
+    assert out["v_flags"][2] == "outside_grid"
