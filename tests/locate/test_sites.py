@@ -221,3 +221,13 @@ def test_existing_output_column_is_an_error() -> None:
 def test_progress_bar_on_request(capsys) -> None:
     locate(pd.DataFrame({"c": ["-8.5 160.25"] * 3}), coords="c", progress=True)
     assert "locate" in capsys.readouterr().err
+
+
+def test_input_frame_is_not_modified_and_lon_0_360_is_explained() -> None:
+    t = pd.DataFrame({"c": ["-8.5 200.25"], "n": [1]})
+    before = t.copy(deep=True)
+    row = locate(t, coords="c").iloc[0]
+    pd.testing.assert_frame_equal(t, before)
+    assert_allclose(row["site_lon"], -159.75, atol=1e-9)  # 200.25°E = 159.75°W (arithmetic)
+    assert row["locate_flags"] == "lon_0_360" and row["locate_status"] == "flagged"
+    assert row["locate_notes"] == "'c' = '-8.5 200.25': the longitude was written in 0-360 and was moved to [-180, 180)."
