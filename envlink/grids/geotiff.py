@@ -10,6 +10,7 @@ masking or scaling, so the same CF-style decoding applies (nodata as
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -78,14 +79,30 @@ def read_geotiff(
             band_units = [u for u in (src.units or ()) if u]
             descriptions = [d for d in (src.descriptions or ()) if d]
             tags = src.tags()
-        da = rioxarray.open_rasterio(path, mask_and_scale=False, chunks=chunks)
+        with warnings.catch_warnings():
+            # rioxarray's own use of deprecated dask/affine calls, not the user's concern
+            warnings.simplefilter("ignore", FutureWarning)
+            warnings.simplefilter("ignore", PendingDeprecationWarning)
+            da = rioxarray.open_rasterio(path, mask_and_scale=False, chunks=chunks)
     except Exception as exc:  # noqa: BLE001 - any failure of the reader is an unreadable file
         raise GridError(f"Cannot open the GeoTIFF {str(path)!r}: {exc}") from None
     if isinstance(da, list):  # pragma: no cover - subdatasets
         raise GridError(f"The GeoTIFF {str(path)!r} holds several subdatasets; open one of them.")
     crs = da.rio.crs
     wkt = crs.to_wkt() if crs is not None else None
-    attrs = {k: v for k, v in da.attrs.items() if k in ("_FillValue", "scale_factor", "add_offset", "units")}
+    attrs = {}
+    for key in ("_FillValue", "scale_factor", "add_offset", "units"):
+        if key not in da.attrs:
+            continue
+        value = da.attrs[key]
+        if isinstance(value, (tuple, list)):
+            if len(set(value)) != 1:
+                raise InputError(
+                    f"The bands of the GeoTIFF {str(path)!r} have different {key} values "
+                    f"{tuple(value)}; envlink reads bands of one variable with one {key}."
+                )
+            value = value[0]
+        attrs[key] = value
     if "units" not in attrs and band_units:
         attrs["units"] = band_units[0]
     if "units" not in attrs and "units" in tags:
@@ -145,7 +162,7 @@ def project_sites(
     >>> from pyproj import CRS
     >>> x, y = project_sites([-37.0], [147.0], CRS.from_epsg(32755).to_wkt())
     >>> round(float(x[0])), round(float(y[0]))
-    (500000, 5904476)
+    (500000, 5905128)
     """
     from pyproj import CRS, Transformer
 
