@@ -12,6 +12,7 @@ import math
 import re
 import unicodedata
 from dataclasses import dataclass
+from decimal import Decimal
 
 from envlink.errors import InputError
 
@@ -184,6 +185,7 @@ _HEMI = r"(north|south|east|west|[nsew])"
 _PREFIX = re.compile(rf"^{_HEMI}(?![a-z])\.?[ ]*", re.I)
 _SUFFIX = re.compile(rf"[ ]*(?<![a-z]){_HEMI}\.?$", re.I)
 _SIGN = re.compile(r"([+-])[ ]*")
+_EXPONENT = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)[eE][+-]?[0-9]+")
 _COMP = re.compile(r"(?P<num>[0-9]+(?:[.,][0-9]+)?|\.[0-9]+)(?P<unit>[°'\"])?")
 _SEP = re.compile(r"(?P<pre>[ ]*)(?P<ch>[:-]?)(?P<post>[ ]*)")
 
@@ -246,6 +248,8 @@ def read_angle(text: str, field: str) -> Angle:
     (-12.5, 'S', 1.853)
     """
     s = text.strip()
+    if _EXPONENT.fullmatch(s):  # 1e-05 as a program writes it: read as 0.00001
+        s = format(Decimal(s), "f")
     letter = None
     m = _PREFIX.match(s)
     if m:

@@ -230,6 +230,8 @@ ANGLES = [
     ("180E", "lon", -180.0, DEG),
     # leading decimal point
     (".5", "lat", 0.5, DEG / 10),
+    # exponent notation as a program writes small numbers: 1e-05 = 0.00001 (5 decimals)
+    ("1e-05", "lat", 1e-05, DEG * 1e-5),
     # 'degrees' in words and an explicit plus sign
     ("+12 degrees", "lat", 12.0, DEG),
 ]
@@ -254,6 +256,8 @@ LAT_LON = [
     ("-7.3", "210", -7.3, -150.0, DEG, ("lon_0_360",)),
     # one column lettered, the other signed
     ("12.5", "45.25E", 12.5, 45.25, DEG / 10, ()),
+    # a tiny float whose repr uses an exponent
+    (1e-05, "45", 1e-05, 45.0, DEG, ()),
     # numbers, not text, are accepted (precision from their shortest repr; lon is coarser)
     (-7.25, 151.5, -7.25, 151.5, DEG / 10, ()),
 ]
