@@ -490,3 +490,40 @@ def test_mapping_months_are_put_in_calendar_order_and_may_override_words() -> No
 
 def test_top_level_export() -> None:
     assert envlink.parse_period is parse_period
+
+
+# ---------------------------------------------------------------- the docs page stays true
+
+_DOC = __import__("pathlib").Path(__file__).resolve().parents[2] / "docs" / "locate-periods.md"
+_DOC_SEASONS = {"wet": [11, 12, 1, 2, 3, 4], "dry": [5, 6, 7, 8, 9, 10]}
+
+
+def _doc_rows() -> list[tuple[str, str, str, str, str]]:
+    rows = []
+    for line in _DOC.read_text(encoding="utf-8").splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if len(cells) == 6 and cells[1].startswith("`") and " .. " in cells[3] or (
+            len(cells) == 6 and cells[3] == "— (unresolved)"
+        ):
+            rows.append((cells[1].strip("`"), cells[2], cells[3], cells[4], cells[5]))
+    return rows
+
+
+def test_docs_page_lists_forms() -> None:
+    assert len(_doc_rows()) >= 60
+
+
+@pytest.mark.parametrize(("text", "options", "window", "precision", "flags"), _doc_rows())
+def test_every_form_in_the_docs_reads_as_documented(text, options, window, precision, flags) -> None:
+    kwargs: dict[str, object] = {}
+    for item in filter(None, (part.strip() for part in options.split(","))):
+        if item == "season_months":
+            kwargs["season_months"] = _DOC_SEASONS
+        else:
+            key, value = item.split("=")
+            kwargs[key] = value.strip("'")
+    period = parse_period(text, **kwargs)  # type: ignore[arg-type]
+    assert period is not None
+    shown = f"{period.start} .. {period.end}" if period.start else "— (unresolved)"
+    assert (shown, period.precision) == (window, precision)
+    assert ", ".join(f"`{f}`" for f in period.flags) == flags
