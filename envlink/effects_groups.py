@@ -58,7 +58,7 @@ def group_effects(
         then ``atanh(r)`` with variance ``1 / (n - 3)`` (groups with ``n <= 3`` are
         flagged and get NaN; so do groups where ``x`` or ``y`` is constant, flag
         ``zero_variance_in_group``). The proportion kinds: the share of 1s in the 0/1
-        column ``outcome`` (True/False also works), passed to the kind of that name in
+        column ``outcome`` (True/False, also as text, work too), passed to the kind of that name in
         :mod:`envlink.effects` (``correction`` and ``zero_cells`` apply to
         ``logit_proportion``).
     x, y, outcome : str, optional
@@ -117,6 +117,11 @@ def group_effects(
     codes, uniques = pd.factorize(records[group], use_na_sentinel=False)
     n_groups = len(uniques)
     values = [_numeric(records[c]) for c in value_cols]
+    if kind != "fisher_z" and np.isnan(values[0]).any():  # True/False written as text
+        words = records[outcome].astype("string").str.strip().str.lower()
+        is_true = (words == "true").fillna(False).to_numpy(dtype=bool)
+        is_false = (words == "false").fillna(False).to_numpy(dtype=bool)
+        values[0] = np.where(is_true, 1.0, np.where(is_false, 0.0, values[0]))
     ok = np.ones(len(records), dtype=bool)
     for v in values:
         ok &= np.isfinite(v)
@@ -141,7 +146,7 @@ def group_effects(
             del dx, dy
             constant = ((sxx == 0) | (syy == 0)) & (n > 3)
             stat = np.clip(sxy / np.sqrt(sxx * syy), -1.0, 1.0)
-            res = fisher_z(np.where(constant, 0.0, stat), n)
+            res = fisher_z(np.where(constant | (n <= 3), 0.0, stat), n)  # small n: flag only
             stat = np.where(constant | (n < 2), np.nan, stat)
             effect = np.where(constant, np.nan, res.effect)
             variance = np.where(constant, np.nan, res.variance)
