@@ -11,7 +11,7 @@ from typing import Any
 
 from envlink.errors import InputError
 
-__all__ = ["register", "run", "parse_season_months", "summary"]
+__all__ = ["register", "run", "add_locate_arguments", "locate_kwargs", "parse_season_months", "summary"]
 
 _WRITABLE = (".csv", ".tsv", ".parquet", ".pq", ".xlsx")
 
@@ -45,6 +45,17 @@ def register(subparsers: Any) -> None:
     p.add_argument("table", metavar="TABLE", help="input table (.csv/.tsv/.txt, .parquet, .xlsx)")
     p.add_argument("-o", "--output", metavar="OUT", required=True,
                    help="output table; the format follows the extension (.csv, .tsv, .parquet, .xlsx)")
+    add_locate_arguments(p)
+    p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
+    p.set_defaults(handler=run)
+
+
+def add_locate_arguments(p: argparse.ArgumentParser) -> None:
+    """Add the column and reading options of ``envlink sites`` to a parser.
+
+    Shared with commands that locate a table first (``envlink attach``); pair it with
+    :func:`locate_kwargs`.
+    """
     g = p.add_argument_group("where")
     g.add_argument("--lat", metavar="COL", help="column with latitudes (with --lon)")
     g.add_argument("--lon", metavar="COL", help="column with longitudes (with --lat)")
@@ -71,8 +82,6 @@ def register(subparsers: Any) -> None:
                    help="how a plain season ('summer 2010') at a southern site is read (default: ambiguous, flagged)")
     w.add_argument("--season-months", metavar="JSON_OR_FILE",
                    help="months of named seasons, as JSON or a JSON file, e.g. '{\"wet\": [11,12,1,2,3,4]}'")
-    p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
-    p.set_defaults(handler=run)
 
 
 def parse_season_months(value: str | None) -> dict[str, list[int]] | None:
@@ -132,9 +141,34 @@ def summary(located: Any, out: str) -> str:
     return "\n".join(lines)
 
 
+def locate_kwargs(args: argparse.Namespace) -> dict[str, Any]:
+    """Check the options added by :func:`add_locate_arguments`; return ``locate()`` keywords.
+
+    Reads the gazetteer file, so a bad one is reported before the table is processed.
+    """
+    from envlink.locate.gazetteer import read_gazetteer
+
+    if not 0 <= args.fuzzy_threshold <= 100:
+        raise InputError(f"--fuzzy-threshold must be a score from 0 to 100; got {args.fuzzy_threshold:g}.")
+    if args.fuzzy_margin < 0:
+        raise InputError(f"--fuzzy-margin must be zero or more points; got {args.fuzzy_margin:g}.")
+    if args.site and not args.gazetteer:
+        raise InputError("--site needs --gazetteer FILE, the table of named sites to look the names up in.")
+    if args.gazetteer and not args.site:
+        raise InputError("--gazetteer is only used with --site COL, the column of site names.")
+    season_months = parse_season_months(args.season_months)
+    gazetteer = read_gazetteer(args.gazetteer, name_col=args.gazetteer_name) if args.gazetteer else None
+    return {
+        "lat": args.lat, "lon": args.lon, "coords": args.coords, "site": args.site,
+        "gazetteer": gazetteer, "period": args.period, "start": args.start, "end": args.end,
+        "order": args.order, "plain_season_south": args.plain_season_south,
+        "season_months": season_months, "fuzzy_threshold": args.fuzzy_threshold,
+        "fuzzy_margin": args.fuzzy_margin,
+    }
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink sites``; returns the exit code."""
-    from envlink.locate.gazetteer import read_gazetteer
     from envlink.locate.sites import locate
     from envlink.tables import read_table, write_table
 
@@ -145,24 +179,9 @@ def run(args: argparse.Namespace) -> int:
         )
     if out.exists() and not args.force:
         raise InputError(f"{str(out)!r} exists; pass --force to overwrite it.")
-    if not 0 <= args.fuzzy_threshold <= 100:
-        raise InputError(f"--fuzzy-threshold must be a score from 0 to 100; got {args.fuzzy_threshold:g}.")
-    if args.fuzzy_margin < 0:
-        raise InputError(f"--fuzzy-margin must be zero or more points; got {args.fuzzy_margin:g}.")
-    if args.site and not args.gazetteer:
-        raise InputError("--site needs --gazetteer FILE, the table of named sites to look the names up in.")
-    if args.gazetteer and not args.site:
-        raise InputError("--gazetteer is only used with --site COL, the column of site names.")
-    season_months = parse_season_months(args.season_months)
+    options = locate_kwargs(args)
     table = read_table(args.table, as_text=True)
-    gazetteer = read_gazetteer(args.gazetteer, name_col=args.gazetteer_name) if args.gazetteer else None
-    located = locate(
-        table,
-        lat=args.lat, lon=args.lon, coords=args.coords, site=args.site, gazetteer=gazetteer,
-        period=args.period, start=args.start, end=args.end, order=args.order,
-        plain_season_south=args.plain_season_south, season_months=season_months,
-        fuzzy_threshold=args.fuzzy_threshold, fuzzy_margin=args.fuzzy_margin,
-    )
+    located = locate(table, **options)
     write_table(located, out, force=True)
     print(summary(located, str(out)), file=sys.stderr)
     return 0

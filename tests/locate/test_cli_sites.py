@@ -140,3 +140,21 @@ def test_subprocess_exit_codes_and_summary(files) -> None:
                           "--force", "--coords", "positon"], capture_output=True, text=True, env=env, timeout=120)
     assert bad.returncode == 2
     assert "Did you mean 'position'?" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_unknown_output_extension_exit_2_before_any_work(files, capsys) -> None:
+    assert main(_args(files["bom"], files["dir"] / "o.json", files["gaz"])) == 2
+    assert "unknown extension '.json'" in capsys.readouterr().err
+
+
+def test_geopackage_gazetteer_with_polygon(files) -> None:
+    import geopandas as gpd
+    from shapely.geometry import Polygon
+
+    gpkg = files["dir"] / "reefs.gpkg"
+    lagoon = Polygon([(158.0, -8.0), (158.5, -8.0), (158.5, -7.5), (158.0, -7.5)])
+    gpd.GeoDataFrame({"reef": ["Kestrel Reef"]}, geometry=[lagoon], crs="EPSG:4326").to_file(gpkg)
+    out = files["dir"] / "poly.csv"
+    assert main(_args(files["bom"], out, gpkg)) == 0
+    row = read_table(out, as_text=True).iloc[2]
+    assert row["site_wkt"].startswith("POLYGON ((158 -8") and row["locate_status"] == "ok"
