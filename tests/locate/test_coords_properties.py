@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
@@ -291,3 +292,28 @@ def test_any_text_gives_a_valid_point_or_a_coordinate_error(pieces: list[str]) -
             assert -90.0 <= got.lat <= 90.0 and -180.0 <= got.lon < 180.0
             assert math.isfinite(got.precision_km) and got.precision_km > 0
             assert set(got.flags) <= set(COORDINATE_FLAGS)
+
+
+def _dms(value: float, symbols: tuple[str, str, str], decimals: int) -> str:
+    _, (d, m, s), frac = _split_units(value, 3, decimals)
+    return f"{d}{symbols[0]}{m:02d}{symbols[1]}{_last(s, frac, decimals, 2)}{symbols[2]}"
+
+
+@pytest.mark.parametrize("symbols", SYMBOL_SETS, ids=repr)
+@pytest.mark.parametrize("minus", MINUS_SIGNS, ids=ascii)
+@settings(max_examples=25, deadline=None, derandomize=True)
+@given(lat=lat_values, lon=lon_values, decimals=st.integers(0, 3))
+def test_every_symbol_set_and_minus_sign(
+    symbols: tuple[str, str, str], minus: str, lat: float, lon: float, decimals: int
+) -> None:
+    # each look-alike set, signed with each dash, and lettered: both must read back
+    signed = ", ".join(
+        (minus if v < 0 else "") + _dms(v, symbols, decimals) for v in (lat, lon)
+    )
+    lettered = f"{_dms(lat, symbols, decimals)}{_hemi(lat, 'lat')} " \
+        f"{_dms(lon, symbols, decimals)}{_hemi(lon, 'lon')}"
+    tol = 0.5 / 3600 / 10**decimals + 1e-9
+    for text in (signed, lettered):
+        got = parse_coordinates(text)
+        assert abs(got.lat - lat) <= tol and _lon_error(got.lon, lon) <= tol, text
+        assert_allclose(got.precision_km, UNIT_KM[2] * 10.0**-decimals, rtol=1e-12)
