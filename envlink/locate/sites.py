@@ -58,6 +58,7 @@ FLAG_MEANINGS: dict[str, str] = {
 
 Order = Literal["dayfirst", "monthfirst"]
 PlainSeasonSouth = Literal["ambiguous", "austral", "boreal"]
+Hemisphere = Literal["north", "south"]
 
 
 @dataclass(frozen=True)
@@ -216,7 +217,7 @@ class _Resolver:
                      notes or _explain(m.flags, f"{col!r} = {name!r}"))
 
     # -- periods -----------------------------------------------------------------------
-    def when(self, period: str, start: str, end: str, hemisphere: str | None) -> _When | None:
+    def when(self, period: str, start: str, end: str, hemisphere: Hemisphere | None) -> _When | None:
         c = self.cols
         if c["period"]:
             key: Hashable = ("p", period, hemisphere)
@@ -237,7 +238,7 @@ class _Resolver:
         precision = value.precision if (start or end) else None  # no window, no precision
         return _When(start, end, precision, flags, _explain(flags, where, tuple(value.notes)))
 
-    def _period(self, text: str, hemisphere: str | None) -> _When:
+    def _period(self, text: str, hemisphere: Hemisphere | None) -> _When:
         col = self.cols["period"]
         try:
             value = self.periods.parse_period(text, hemisphere=hemisphere, **self.period_options)
@@ -246,7 +247,7 @@ class _Resolver:
             return _When(flags=(code,), notes=(f"{col!r} = {text!r}: {reason}",), rejected=True)
         return self._finish(value, f"{col!r} = {text!r}")
 
-    def _columns(self, start: str, end: str, hemisphere: str | None) -> _When:
+    def _columns(self, start: str, end: str, hemisphere: Hemisphere | None) -> _When:
         c = self.cols
         where = f"{c['start']!r}/{c['end']!r} = {start!r}/{end!r}"
         try:
@@ -415,7 +416,7 @@ def locate(
     with tqdm(total=n, desc="locate", unit="row", file=sys.stderr, disable=not show) as bar:
         for i in range(n):
             s = resolver.site(lat_t[i], lon_t[i], coords_t[i], site_t[i])
-            hemisphere = None
+            hemisphere: Hemisphere | None = None
             flags: tuple[str, ...] = ()
             notes: tuple[str, ...] = ()
             rejected = False
