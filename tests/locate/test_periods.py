@@ -509,11 +509,34 @@ def _doc_rows() -> list[tuple[str, str, str, str, str]]:
     return rows
 
 
-def test_docs_page_lists_forms() -> None:
+needs_docs = pytest.mark.skipif(not _DOC.exists(), reason="docs/ not shipped with this install")
+
+
+@needs_docs
+def test_docs_page_lists_forms_flags_and_codes() -> None:
     assert len(_doc_rows()) >= 60
+    text = _DOC.read_text(encoding="utf-8")
+    flags = {f for case in CASES + COLUMN_CASES for f in case[-1]} | {case[3] for case in AMBIGUOUS}
+    codes = {case[1] for case in ERRORS}
+    for name in sorted(flags | codes):
+        assert f"| `{name}`" in text or f", `{name}` |" in text, name
 
 
-@pytest.mark.parametrize(("text", "options", "window", "precision", "flags"), _doc_rows())
+@needs_docs
+def test_docs_page_examples_run() -> None:
+    import doctest
+    import re
+
+    blocks = re.findall(r"```python\n(.*?)```", _DOC.read_text(encoding="utf-8"), flags=re.S)
+    assert blocks
+    test = doctest.DocTestParser().get_doctest("\n".join(blocks), {}, "locate-periods.md", str(_DOC), 0)
+    runner = doctest.DocTestRunner(optionflags=doctest.ELLIPSIS)
+    runner.run(test)
+    assert runner.failures == 0
+
+
+@needs_docs
+@pytest.mark.parametrize(("text", "options", "window", "precision", "flags"), _doc_rows() if _DOC.exists() else [])
 def test_every_form_in_the_docs_reads_as_documented(text, options, window, precision, flags) -> None:
     kwargs: dict[str, object] = {}
     for item in filter(None, (part.strip() for part in options.split(","))):
