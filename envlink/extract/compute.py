@@ -81,7 +81,7 @@ def _source_series(X: np.ndarray, xrow: np.ndarray, srcs: Sources, a: int, b: in
 
 
 def _mmm_from_grid(mmm: xr.DataArray, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
-    da = mmm.squeeze(drop=True)
+    da = mmm.squeeze([d for d in mmm.dims if d not in ("lat", "lon") and mmm.sizes[d] == 1], drop=True)
     if set(da.dims) != {"lat", "lon"}:
         raise InputError(f"The mmm climatology must have dims (lat, lon); got {tuple(mmm.dims)}.")
     pick = da.sel(lat=xr.DataArray(lat, dims="p"), lon=xr.DataArray(lon, dims="p"), method="nearest")
