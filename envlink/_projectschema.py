@@ -122,6 +122,10 @@ SECTIONS: dict[str, dict[str, KeySpec]] = {
         "test": KeySpec("str", _words(TESTS), check=_in(TESTS)),
         "nested": KeySpec("str", _COLUMN + " (random effect; effects nested in it)"),
         "cluster": KeySpec("str", _COLUMN + " (cluster-robust CR2 standard errors)"),
+        "permutations": KeySpec("number", "a whole number >= 0 (0: no permutation test)",
+                                check=lambda v: isinstance(v, int) and v >= 0),
+        "seed": KeySpec("number", "a whole number (seed of the permutations)",
+                        check=lambda v: isinstance(v, int)),
     },
     "export": {
         "name": KeySpec("str", "a file stem (letters, digits, '.', '_', '-')",

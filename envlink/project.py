@@ -393,12 +393,18 @@ def run_project(
                 raise InputError(f"{_where(project, 'effects', 'columns')}: {exc}") from exc
             provenance["effects"] = {k: v for k, v in eff.items()}
             steps.done("effects")
-        fit, fit_rows, egger = None, 0, None
+        fit, fit_rows, egger, permutation_p = None, 0, None, None
         if "model" in project.data:
             fit, ok, egger = _fit_model(project, table, effect, variance)
             fit_rows = int(ok.sum())
             table = table.assign(fit_included=ok)
             provenance["model"] = dict(project.section("model"))
+            n_perm = int(project.section("model").get("permutations", 0))
+            if n_perm and fit is not None:
+                perm = fit.permutation_test(n_perm, project.section("model").get("seed"),
+                                            progress=bool(progress))  # fmt: skip
+                provenance["model"]["permutation"] = perm.to_dict()
+                permutation_p = float(perm.Q_M_p)
             steps.done("model")
         table.attrs = {}
         exp = project.section("export")
@@ -425,6 +431,7 @@ def run_project(
                 moderator=moderator, effect=effect, variance=variance, field=field_grid,
                 provenance=provenance, windows_tried=max(1, len(covs)), title=project.title,
                 egger=egger, label=project.section("studies").get("study"), units=units,
+                permutation_p=permutation_p,
             )  # fmt: skip
             steps.done("report")
     finally:

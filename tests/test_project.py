@@ -94,7 +94,7 @@ def test_key_lines_follow_the_text() -> None:
     [
         ('method = "REML"', 'methd = "REML"',
          r"p\.toml, line LINE: unknown key 'methd' in \[model\]\. Did you mean 'method'\? "
-         r"Allowed keys: moderators, method, test, nested, cluster\."),
+         r"Allowed keys: moderators, method, test, nested, cluster, permutations, seed\."),
         ('method = "REML"', 'method = "reml2"',
          r"line LINE: the key 'model\.method' must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; "
          r"got 'reml2'\."),
@@ -220,6 +220,21 @@ def test_run_without_grids_end_to_end_and_force(tmp_path: Path) -> None:
     assert (out / "enriched.csv").read_bytes() == before
     again = run_project(p, progress=False, force=True, out=out)
     assert again.fit_rows == 5
+
+
+def test_permutation_test_and_report_from_project(tmp_path: Path) -> None:
+    text = BASE.replace('test = "knapp-hartung"', 'test = "knapp-hartung"\npermutations = 19\nseed = 7')
+    p = _project(tmp_path, text.replace("report = false", "report = true"))
+    result = run_project(p, progress=False)
+    perm = json.loads(result.paths["datapackage"].read_text())["envlink"]["model"]["permutation"]
+    assert perm["n_permutations"] == 19 and perm["seed"] == 7
+    assert 1 / 20 <= perm["Q_M_p"] <= 1  # (1 + count) / (1 + N), common practice
+    html = result.paths["report"].read_text()
+    assert "permutation-corrected p" in html
+    bad = _project(tmp_path, BASE.replace('method = "REML"', 'method = "REML"\npermutations = 9.5'),
+                   name="bad.toml")
+    with pytest.raises(InputError, match=r"'model\.permutations' must be a whole number >= 0"):
+        load_project(bad)
 
 
 def test_cli_run_exit_codes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
