@@ -10,17 +10,19 @@ import datetime as dt
 import re
 from collections.abc import Sequence
 from functools import lru_cache
-from typing import Any
 
 from envlink.locate._periodtext import (
+    MONTH_ABBR,
     TWO_DIGIT_YEAR,
     UNIT_RANK,
+    Duration,
     NeedsOrder,
     Order,
     Period,
     PeriodError,
     Point,
     Precision,
+    check_date,
     instant_of,
     last_day_before,
     month_end,
@@ -140,14 +142,16 @@ class _Reader:
         return Period(start, end, precision, ("vague_qualifier", *inner.flags), (note, *inner.notes))
 
     def _decade_or_quarter(self, norm: str, order: Order | None) -> Period | None:
-        if m := re.fullmatch(r"(?:the )?(\d{3})0'?s", norm):
-            first = int(m.group(1)) * 10
-            return Period(dt.date(first, 1, 1), dt.date(first + 9, 12, 31), "years", ())
+        if d := re.fullmatch(r"(?:the )?(\d{3})0'?s", norm):
+            decade = int(d.group(1)) * 10
+            if decade == 0:
+                raise self.fail("year 0 is outside the calendar (years run 1-9999)", "impossible_date")
+            return Period(dt.date(decade, 1, 1), dt.date(decade + 9, 12, 31), "years", ())
         m = re.fullmatch(r"q([1-4])[ \-]?(\d{4})|(\d{4})[ \-]?q([1-4])", norm)
         if m is None:
             return None
         quarter, year = (int(m.group(1)), int(m.group(2))) if m.group(1) else (int(m.group(4)), int(m.group(3)))
-        first = dt.date(year, 3 * quarter - 2, 1)
+        first = check_date(year, 3 * quarter - 2, 1, self.raw, self.field)
         return Period(first, month_end(dt.date(year, 3 * quarter, 1)), "month", ())
 
     def _split_year(self, norm: str, order: Order | None) -> Period | None:
@@ -155,6 +159,7 @@ class _Reader:
         if m is None:
             return None
         y1, tail = int(m.group(1)), m.group(2)
+        check_date(y1, 1, 1, self.raw, self.field)
         if len(tail) == 4 and int(tail) != y1 + 1:
             return None  # an ISO interval of years
         y2 = y1 // 100 * 100 + int(tail) + (100 if int(tail) < y1 % 100 else 0) if len(tail) == 2 else int(tail)
@@ -181,6 +186,14 @@ class _Reader:
             raise self.fail("an interval of two durations has no dates")
         if p_l is not None and p_r is not None:
             return self._between(p_l, p_r)
+        try:
+            return self._with_duration(p_l, p_r, dur_l, dur_r)
+        except OverflowError:
+            raise self.fail("the interval reaches beyond the calendar (years 1-9999)", "impossible_date") from None
+
+    def _with_duration(self, p_l: Point | None, p_r: Point | None, dur_l: Duration | None,
+                       dur_r: Duration | None) -> Period | None:
+        f = self.field
         if p_l is not None and dur_r is not None:
             first, last = point_window(p_l, self.raw, f)
             start = instant_of(p_l, first, last, at_end=False)
@@ -195,7 +208,7 @@ class _Reader:
             return Period(start.date(), stop, _precision([p_r.unit, dur_l.unit], start.date(), stop), ())
         return None
 
-    def _shifted(self, instant: dt.datetime, duration: Any, sign: int) -> dt.datetime:
+    def _shifted(self, instant: dt.datetime, duration: Duration, sign: int) -> dt.datetime:
         try:
             return shift(instant, duration, sign)
         except (ValueError, OverflowError):
@@ -256,8 +269,11 @@ class _Reader:
             if filled is None:
                 continue
             hint = ""
-            if points[0].year is None and points[0].span is None and points[0].day is None:
-                hint = (f"; a range across the year end needs both years (e.g. "
-                        f"Dec {filled[1].year - 1}-Feb {filled[1].year}, or DJF {filled[1].year})")
+            a, b = filled
+            if points[0].year is None and a.span is None and a.day is None and a.month and b.month and b.year:
+                hint = (f"; a range across the year end needs both years (e.g. {MONTH_ABBR[a.month - 1]} "
+                        f"{b.year - 1}-{MONTH_ABBR[b.month - 1]} {b.year})")
+                if (a.month, b.month) == (12, 2):
+                    hint = hint[:-1] + f", or DJF {b.year})"
             return self._between(*filled, hint=hint)
         return None

@@ -207,10 +207,13 @@ def read_point(
         if m is None:
             continue
         year = _int(m, "y")
+        if kind in ("week", "ordinal") and (year is None or year < 1):
+            raise PeriodError(field, f"year {year} is outside the calendar (years run 1-9999)",
+                              "impossible_date", text)
         if kind == "week":
-            return Point(year=year, span=_week_span(year, int(m.group("w")), _int(m, "wd"), text, field))
+            return Point(year=year, span=_week_span(int(m.group("y")), int(m.group("w")), _int(m, "wd"), text, field))
         if kind == "ordinal":
-            return Point(year=year, span=_ordinal_span(year, int(m.group("o")), text, field))
+            return Point(year=year, span=_ordinal_span(int(m.group("y")), int(m.group("o")), text, field))
         if kind == "numeric":
             a, b = int(m.group("a")), int(m.group("b"))
             if order is None:

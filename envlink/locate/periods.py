@@ -229,8 +229,8 @@ def parse_period_columns(start_text: object, end_text: object, **options: Any) -
         return Period(given.start, given.end, given.precision, (*given.flags, flag), (*given.notes, note))
     flags = tuple(dict.fromkeys((*first.flags, *last.flags)))
     notes = tuple(dict.fromkeys((*first.notes, *last.notes)))
-    units = [u for u in (first.precision, last.precision) if u is not None]
-    coarser: Precision | None = max(units, key=UNIT_RANK.__getitem__) if units else None
+    units: list[Precision] = [u for u in (first.precision, last.precision) if u is not None]
+    coarser: Precision | None = max(units, key=lambda u: UNIT_RANK[str(u)]) if units else None
     if first.start is None or last.end is None:
         return Period(None, None, coarser, flags, notes)
     if last.end < first.start:
