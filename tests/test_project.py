@@ -248,3 +248,20 @@ def test_cli_run_exit_codes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) 
     assert f"line {_line_of(text, 'test = ')}: the key 'model.test'" in capsys.readouterr().err
     assert main(["run", str(p), "--out", str(tmp_path / "o")]) == 2  # exists, no --force
     assert "--force" in capsys.readouterr().err
+
+
+def test_every_schema_key_is_documented() -> None:
+    from envlink._projectschema import SECTIONS
+
+    doc = (Path(__file__).parents[1] / "docs" / "project-file.md").read_text()
+    headings = {"grids.*": "## `[grids.NAME]`", "covariates[]": "## `[[covariates]]`"}
+    for section, keys in SECTIONS.items():
+        assert headings.get(section, f"## `[{section}]`") in doc, section
+        for key in keys:
+            if key != "columns":
+                assert f"`{key}`" in doc, (section, key)
+    assert "### `[effects.columns]`" in doc
+    block = doc.split("## The bundled demo project", 1)[1]
+    for line in data_path("demo.toml").read_text().splitlines():
+        if line and not line.startswith("#"):
+            assert line in block, line  # the documented demo project is the bundled one
