@@ -1,0 +1,112 @@
+"""The ``envlink attach`` command: options, locating first, exit codes, summary."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from numpy.testing import assert_allclose
+
+from envlink.cli import main
+
+
+@pytest.fixture
+def files(tmp_path, monkeypatch):
+    monkeypatch.setenv("ENVLINK_CACHE", str(tmp_path / "cache"))
+    vals = np.arange(24 * 3 * 2, dtype=float).reshape(24, 3, 2)
+    ds = xr.Dataset(
+        {"sst": (("time", "lat", "lon"), vals, {"units": "degC"})},
+        coords={"time": pd.date_range("2000-01-01", periods=24, freq="MS"),
+                "lat": [0.5, 1.5, 2.5], "lon": [10.5, 11.5]},
+    )
+    ds.to_netcdf(tmp_path / "g.nc")
+    daily = xr.Dataset(
+        {"sst": (("time", "lat", "lon"), np.full((120, 1, 1), 30.0), {"units": "degC"})},
+        coords={"time": pd.date_range("2000-01-01", periods=120, freq="D"), "lat": [0.5], "lon": [10.5]},
+    )
+    daily.to_netcdf(tmp_path / "daily.nc")
+    pd.DataFrame({
+        "id": [1, 2, 3], "site_lat": [1.2, 9.0, ""], "site_lon": [10.7, 10.7, ""],
+        "period_start": ["2000-03-01", "2000-03-01", "2000-01-01"],
+        "period_end": ["2000-03-31", "2000-03-31", "2000-01-31"],
+        "locate_status": ["ok", "ok", "rejected"],
+    }).to_csv(tmp_path / "located.csv", index=False)
+    pd.DataFrame({"id": [1, 2], "la": ["1.2", "bad"], "lo": ["10.7", "11"], "when": ["2000-03", "2001"]}).to_csv(
+        tmp_path / "raw.csv", index=False
+    )
+    return tmp_path
+
+
+def test_attach_located_table(files, capsys):
+    out = files / "out.csv"
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "sst", "-o", str(out)])
+    assert rc == 0
+    res = pd.read_csv(out, keep_default_na=False)
+    # cell (1.5, 10.5) is row 1, col 0: value 2 + 6 × month index (March = 2) = 14
+    assert_allclose(float(res["sst"][0]), 14.0, rtol=1e-12)
+    assert res["sst_flags"].tolist() == ["", "outside_grid", "site_rejected"]
+    err = capsys.readouterr().err
+    assert "values         1" in err and "missing        2" in err and "outside_grid" in err
+    assert list((files / "cache").glob("*.npz"))
+
+
+def test_attach_locates_first(files):
+    out = files / "out.parquet"
+    rc = main(["attach", str(files / "raw.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "--lat", "la", "--lon", "lo", "--period", "when", "--stat", "max", "--window", "lag:1M",
+               "-o", str(out), "--no-cache"])
+    assert rc == 0
+    res = pd.read_parquet(out)
+    assert res["id"].tolist() == ["1", "2"]  # input cells kept exactly as written
+    assert_allclose(res["sst"][0], 2.0 + 6.0, rtol=1e-12)  # February 2000 at cell (1.5, 10.5)
+    assert res["sst_flags"][1] == "site_rejected"
+    assert not (files / "cache").exists()
+
+
+def test_attach_dhw_with_mmm_value(files):
+    out = files / "dhw.csv"
+    pd.DataFrame({"site_lat": [0.5], "site_lon": [10.5], "period_start": ["2000-04-01"],
+                  "period_end": ["2000-04-29"]}).to_csv(files / "one.csv", index=False)
+    rc = main(["attach", str(files / "one.csv"), "--grid", str(files / "daily.nc"), "--name", "dhw",
+               "--stat", "dhw-max", "--mmm", "28.0", "-o", str(out)])
+    assert rc == 0
+    # HotSpot 2 °C every day: the 84-day sum / 7 = 24 °C-weeks (Liu et al. 2014 rule)
+    assert_allclose(pd.read_csv(out)["dhw"][0], 24.0, rtol=1e-12)
+
+
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--stat", "avg"], "The 'stat' parameter of attach must be"),
+        (["--spatial", "nearest-valid:abc"], "'nearest-valid:Dkm' with D a positive distance in km"),
+        (["--mmm", "nowhere.nc", "--stat", "dhw-max"], "--mmm 'nowhere.nc' is neither a number"),
+    ],
+)
+def test_attach_bad_options_exit_2(files, capsys, extra, message):
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
+               "-o", str(files / "o.csv"), *extra])
+    assert rc == 2
+    assert message in capsys.readouterr().err
+
+
+def test_attach_needs_located_columns_or_locate_options(files, capsys):
+    rc = main(["attach", str(files / "raw.csv"), "--grid", str(files / "g.nc"), "--name", "v", "-o", str(files / "o.csv")])
+    assert rc == 2
+    assert "lacks the located columns site_lat, site_lon, period_start, period_end" in capsys.readouterr().err
+
+
+def test_attach_refuses_to_overwrite(files, capsys):
+    (files / "o.csv").write_text("x\n")
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v", "-o", str(files / "o.csv")])
+    assert rc == 2 and "pass --force" in capsys.readouterr().err
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
+               "-o", str(files / "o.csv"), "--force"])
+    assert rc == 0
+
+
+def test_attach_help_lists_forms(capsys):
+    assert main(["attach", "--help"]) == 0
+    text = capsys.readouterr().out
+    for word in ("dhw-max", "nearest-valid:Dkm", "around-mid", "--time-weights", "--min-coverage", "--no-cache"):
+        assert word in text
