@@ -7,6 +7,7 @@ grid holds and covers) and :func:`grid_identity` (provenance and cache key).
 from __future__ import annotations
 
 from envlink.grids.conventions import GridWarning, ValidRangeWarning
+from envlink.grids.curvilinear import CurvilinearIndex
 from envlink.grids.geotiff import project_sites
 from envlink.grids.identity import grid_identity
 from envlink.grids.info import GridInfo, grid_info
@@ -20,4 +21,5 @@ __all__ = [
     "GridWarning",
     "ValidRangeWarning",
     "project_sites",
+    "CurvilinearIndex",
 ]

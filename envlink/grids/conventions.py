@@ -10,6 +10,8 @@ unpacking, as both sections require; a valid range whose type is the unpacked
 
 from __future__ import annotations
 
+import os
+import sys
 import warnings
 from collections.abc import Mapping
 from typing import Any
@@ -27,6 +29,17 @@ __all__ = [
     "wrap_longitude",
     "covers_circle",
 ]
+
+
+def user_stacklevel() -> int:
+    """The ``stacklevel`` that points a warning at the first caller outside envlink."""
+    package_dir = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    frame = sys._getframe(1)
+    level = 1
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package_dir):
+        frame = frame.f_back
+        level += 1
+    return level
 
 
 class GridWarning(EnvlinkWarning):
@@ -150,7 +163,7 @@ def decode_values(
             f"are packed as {stored.name}; CF (§8.1) asks for the packed type, so the range "
             "looks stated in unpacked units and was applied to the unpacked values.",
             ValidRangeWarning,
-            stacklevel=3,
+            stacklevel=user_stacklevel(),
         )
     if mask is not None:
         values = values.where(~mask)

@@ -218,3 +218,40 @@ def test_in_memory_dataset_and_dataarray():
 def test_bad_time_option():
     with pytest.raises(InputError, match="'time' parameter of open_grid"):
         open_grid(xr.Dataset(), time=True)  # type: ignore[arg-type]
+
+
+def test_projected_netcdf_with_grid_mapping(tmp_path):
+    from pyproj import CRS
+
+    wkt = CRS.from_epsg(32755).to_wkt()
+    raw = np.arange(2 * 3 * 4, dtype="float32").reshape(2, 3, 4)
+    y = np.array([5_902_500.0, 5_901_500.0, 5_900_500.0])  # descending, as rasters are
+    x = np.array([500_500.0, 501_500.0, 502_500.0, 503_500.0])
+    p = write_nc(tmp_path / "utm.nc", raw, name="tas", dims=("time", "y", "x"),
+                 coords={"time": np.array([0.0, 1.0]), "y": y, "x": x},
+                 coord_attrs={"time": {"units": "days since 2000-01-01"},
+                              "y": {"standard_name": "projection_y_coordinate", "units": "m"},
+                              "x": {"standard_name": "projection_x_coordinate", "units": "m"}},
+                 attrs={"units": "degC", "grid_mapping": "crs"},
+                 extra={"crs": ((), np.int32(0), {"crs_wkt": wkt})})
+    g = open_grid(p)
+    assert g.dims == ("time", "y", "x") and g.attrs["envlink_layout"] == "projected"
+    assert_array_equal(g.y.values, y[::-1])
+    assert_array_equal(g.values, raw[:, ::-1, :])
+    assert CRS.from_wkt(g.attrs["crs_wkt"]).to_epsg() == 32755
+
+
+@pytest.mark.requires_dask
+def test_multi_file_and_zarr_stay_lazy(tmp_path):
+    import dask.array as dsa
+
+    a = _monthly(tmp_path, "a.nc", 3, 0)
+    b = _monthly(tmp_path, "b.nc", 3, 3)
+    g = open_grid([a, b])
+    assert isinstance(g.data, dsa.Array)
+    ds = xr.open_dataset(a, decode_cf=False)
+    store = tmp_path / "a.zarr"
+    ds.to_zarr(store, zarr_format=2, consolidated=True)  # Zarr 2 with .zmetadata
+    gz = open_grid(store)
+    assert isinstance(gz.data, dsa.Array)
+    assert_array_equal(gz.values, _data(3, 0))
