@@ -79,53 +79,70 @@ def _unpack(vec: np.ndarray, p: int) -> Sums:
 
 if HAVE_NUMBA:
 
-    @numba.njit(cache=True, nogil=True, parallel=True)
-    def _nb_sums(y, v, X, intercept, tau2, block):  # pragma: no cover - compiled
-        k = y.shape[0]
+    @numba.njit(cache=True, nogil=True)
+    def _nb_block(y, v, X, intercept, tau2, lo, hi, acc):  # pragma: no cover - compiled
         m = X.shape[1]
         p = m + (1 if intercept else 0)
         pp = p * p
-        nstat = 3 * pp + 2 * p + 5
+        x = np.empty(p)
+        o = 3 * pp + 2 * p
+        for i in range(lo, hi):
+            vt = np.float64(v[i]) + tau2
+            w = 1.0 / vt
+            yi = np.float64(y[i])
+            if intercept:
+                x[0] = 1.0
+                for j in range(m):
+                    x[j + 1] = X[i, j]
+            else:
+                for j in range(m):
+                    x[j] = X[i, j]
+            w2 = w * w
+            w3 = w2 * w
+            wy = w * yi
+            w2y = w2 * yi
+            for a in range(p):
+                xa = x[a]
+                acc[3 * pp + a] += wy * xa
+                acc[3 * pp + p + a] += w2y * xa
+                for c in range(a + 1):
+                    xx = xa * x[c]
+                    acc[a * p + c] += w * xx
+                    acc[pp + a * p + c] += w2 * xx
+                    acc[2 * pp + a * p + c] += w3 * xx
+            acc[o] += w
+            acc[o + 1] += w2
+            acc[o + 2] += wy * yi
+            acc[o + 3] += w2y * yi
+            acc[o + 4] += math.log(vt)
+
+    @numba.njit(cache=True, nogil=True)
+    def _nb_serial(y, v, X, intercept, tau2, block):  # pragma: no cover - compiled
+        k = y.shape[0]
+        p = X.shape[1] + (1 if intercept else 0)
+        nstat = 3 * p * p + 2 * p + 5
+        out = np.zeros(nstat)
+        acc = np.zeros(nstat)
+        for lo in range(0, k, block):
+            acc[:] = 0.0
+            _nb_block(y, v, X, intercept, tau2, lo, min(k, lo + block), acc)
+            out += acc
+        return out
+
+    @numba.njit(cache=True, nogil=True, parallel=True)
+    def _nb_parallel(y, v, X, intercept, tau2, block):  # pragma: no cover - compiled
+        k = y.shape[0]
+        p = X.shape[1] + (1 if intercept else 0)
+        nstat = 3 * p * p + 2 * p + 5
         nblk = (k + block - 1) // block
         part = np.zeros((nblk, nstat))
         for bi in numba.prange(nblk):
             acc = np.zeros(nstat)
-            x = np.empty(p)
             lo = bi * block
-            hi = min(k, lo + block)
-            for i in range(lo, hi):
-                vt = np.float64(v[i]) + tau2
-                w = 1.0 / vt
-                yi = np.float64(y[i])
-                if intercept:
-                    x[0] = 1.0
-                    for j in range(m):
-                        x[j + 1] = X[i, j]
-                else:
-                    for j in range(m):
-                        x[j] = X[i, j]
-                w2 = w * w
-                w3 = w2 * w
-                wy = w * yi
-                w2y = w2 * yi
-                for a in range(p):
-                    xa = x[a]
-                    acc[3 * pp + a] += wy * xa
-                    acc[3 * pp + p + a] += w2y * xa
-                    for c in range(a + 1):
-                        xx = xa * x[c]
-                        acc[a * p + c] += w * xx
-                        acc[pp + a * p + c] += w2 * xx
-                        acc[2 * pp + a * p + c] += w3 * xx
-                o = 3 * pp + 2 * p
-                acc[o] += w
-                acc[o + 1] += w2
-                acc[o + 2] += wy * yi
-                acc[o + 3] += w2y * yi
-                acc[o + 4] += math.log(vt)
+            _nb_block(y, v, X, intercept, tau2, lo, min(k, lo + block), acc)
             part[bi, :] = acc
         out = np.zeros(nstat)
-        for bi in range(nblk):  # fixed order: reproducible whatever the thread count
+        for bi in range(nblk):  # fixed order: the same sums whatever the thread count
             out += part[bi, :]
         return out
 
@@ -173,7 +190,8 @@ def block_sums_vector(y, v, X, intercept: bool, tau2: float, *, use_numba: bool 
     v = np.asarray(v)
     X = np.asarray(X)
     if use_numba and HAVE_NUMBA and y.shape[0] > 0:
-        return _nb_sums(y, v, X, bool(intercept), float(tau2), int(block))
+        kern = _nb_parallel if y.shape[0] > 8 * block else _nb_serial
+        return kern(y, v, X, bool(intercept), float(tau2), int(block))
     p = X.shape[1] + (1 if intercept else 0)
     out = np.zeros(_n_stats(p))
     for lo in range(0, y.shape[0], block):

@@ -84,6 +84,11 @@ def loglik(g: GLS, k: int, p: int, method: str) -> float:
     return -0.5 * ((k - p) * np.log(2 * np.pi) + g.slog + g.logdetA + g.yPy)
 
 
+def _score(g: GLS, method: str) -> float:
+    """Derivative of the (restricted) log-likelihood with respect to tau²."""
+    return 0.5 * (g.yPPy - (g.sw if method == "ML" else g.trP))
+
+
 def _score_step(g: GLS, method: str) -> float:
     if method == "ML":
         return (g.yPPy - g.sw) / g.sw2
@@ -97,17 +102,20 @@ def _fisher(d: Any, method: str, start: float, tol: float, max_iter: int,
     g = gls(sums_at(d, t, use_numba), t)
     ll = loglik(g, k, p, method)
     msgs: list[str] = []
+    prev: tuple[float, float] | None = None  # (tau², score) of the previous iterate
     for it in range(1, max_iter + 1):
         step = _score_step(g, method)
+        sc = _score(g, method)
         if t <= 0.0 and step <= 0.0:
             return TauFit(0.0, True, it, msgs, g)
+        if prev is not None and (sc > 0) != (prev[1] > 0) and sc != prev[1]:
+            # Fisher steps overshoot when expected and observed information differ:
+            # the score root is bracketed by the last two iterates, take the secant step
+            step = -sc * (t - prev[0]) / (sc - prev[1])
+        prev = (t, sc)
         new = t + step
-        halvings = 0
-        while new < 0.0 and halvings < 60:  # step halving keeps tau² >= 0
-            step /= 2.0
-            new = t + step
-            halvings += 1
-        if new < 0.0:
+        if new < 0.0:  # truncate at the boundary; halving below keeps the likelihood rising
+            step = -t
             new = 0.0
         g_new = gls(sums_at(d, new, use_numba), new)
         ll_new = loglik(g_new, k, p, method)

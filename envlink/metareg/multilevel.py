@@ -145,9 +145,13 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
             theta = new
             break
         theta = new
-    ll, _, beta, Ainv, yPy = _parts(theta, y, v, X, codes, S, method, False)
-    return MultilevelFit(theta, beta, Ainv, yPy, float(ll), bool(res.success), int(res.nit) + n_extra,
-                         str(res.message))
+    ll, g, beta, Ainv, yPy = _parts(theta, y, v, X, codes, S, method, True)
+    free = ~((theta <= 0.0) & (g <= 0.0))
+    # first-order optimality: the likelihood gains < 1e-6 per relative change of a component
+    crit = float(np.max(np.abs(g[free]) * np.maximum(theta[free], scale), initial=0.0))
+    ok = crit <= 1e-6
+    msg = "converged" if ok else f"gradient criterion {crit:.3g} > 1e-6 ({res.message})"
+    return MultilevelFit(theta, beta, Ainv, yPy, float(ll), ok, int(res.nit) + n_extra, msg)
 
 
 def study_blocks(v: np.ndarray, codes: np.ndarray, sigma2: np.ndarray,
