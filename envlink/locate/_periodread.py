@@ -42,7 +42,17 @@ def read_text(
     plain_south: PlainSouth, mapping: tuple[tuple[str, tuple[int, ...]], ...],
 ) -> Period:
     reader = _Reader(raw, field, hemisphere, plain_south, dict(mapping))
-    norm = normalise(raw)
+    try:
+        return _read_either_order(reader, normalise(raw), order)
+    except PeriodError:
+        raise
+    except (ValueError, OverflowError) as err:  # date arithmetic at the calendar's edges
+        raise PeriodError(field, f"the dates fall outside the calendar (years 1-9999): {err}",
+                          "impossible_date", raw) from None
+
+
+def _read_either_order(reader: _Reader, norm: str, order: Order | None) -> Period:
+    raw, field = reader.raw, reader.field
     if order is not None:
         return reader.read(norm, order)
     try:

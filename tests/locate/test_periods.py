@@ -420,6 +420,12 @@ ERRORS = [
     ("P3M", "unreadable_period", r"duration alone"),
     # a fractional month duration
     ("2013-04-01/P1.5M", "unreadable_period", r"only the seconds of a duration may have decimals"),
+    # a split year past the calendar's last year (datetime supports years 1-9999)
+    ("9999/00", "impossible_date", r"outside the calendar \(years 1-9999\)"),
+    # a duration past the calendar's end
+    ("9999-12-31/P1D", "impossible_date", r"beyond the calendar"),
+    # year 0 does not exist in the proleptic Gregorian calendar of datetime
+    ("0000-W01", "impossible_date", r"year 0 is outside the calendar"),
     # words with no date
     ("sometime", "unreadable_period", r"no year found"),
     # a day range without a year
