@@ -387,9 +387,11 @@ def export_table(
     fit : fitted meta-regression, optional
         Anything with ``to_dict()`` and ``summary()``; written as ``fit.json`` and ``fit.txt``.
     provenance : mapping, optional
-        Recorded under ``envlink`` in the descriptor. Default ``table.attrs["envlink"]``.
+        Recorded under ``envlink`` in the descriptor. Default ``table.attrs["envlink"]``
+        (where :func:`envlink.attach` keeps each covariate's provenance under its name).
         Its ``covariates`` entry (name -> provenance with ``units``, ``stat``,
-        ``window``, ``spatial``, ``grid``) describes the covariate columns.
+        ``window``, ``spatial``, ``grid``) describes the covariate columns; without one,
+        entries named after a covariate column are taken as its provenance.
     input_columns : sequence of str, optional
         The user's own columns, described as such in the schema.
     descriptions, units : mapping, optional
@@ -453,7 +455,12 @@ def export_table(
         raise InputError(f"Cannot export into {str(target)!r}: it is a file, not a folder.")
 
     prov = dict(provenance if provenance is not None else table.attrs.get("envlink", {}) or {})
-    covariates = prov.get("covariates", {}) or {}
+    covariates = prov.get("covariates")
+    if covariates is None:  # attach's own record: table.attrs["envlink"][name] per covariate
+        covariates = {k: v for k, v in prov.items() if isinstance(v, Mapping)
+                      and k in table.columns and f"{k}_flags" in table.columns}  # fmt: skip
+        prov = {k: v for k, v in prov.items() if k not in covariates}
+        prov["covariates"] = covariates
     schema = table_schema(table, input_columns=input_columns, covariates=covariates,
                           descriptions=descriptions, units=units)  # fmt: skip
     df = _normalised(table, schema)
