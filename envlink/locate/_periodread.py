@@ -89,12 +89,17 @@ def _precision(units: Sequence[str], start: dt.date, end: dt.date) -> Precision:
 
 
 _QUALIFIER_BEFORE = re.compile(
-    r"(?:the )?(?:middle of|mid|early|late|end of|beginning of|start of|circa|ca\.?|c\.|"
-    r"around|about|approximately|approx\.?|roughly|~)[ \-]*(?:the )?"
+    r"^(?:the )?(?:middle of|mid|early|late|end of|beginning of|start of|circa|ca\.?|c\.|"
+    r"around|about|approximately|approx\.?|roughly|~)(?=[ \-\dM])[ \-]*(?:the )?"
 )
 _QUALIFIER_AFTER = re.compile(
-    r" ?\(?(?:approximately|approx\.?|circa|ca\.?|est\.?|estimated|or so)\)?$|\?$"
+    r"(?: \(?|\()(?:approximately|approx\.?|circa|ca\.?|est\.?|estimated|or so)\)?$|\?$"
 )
+
+
+def _unqualified(norm: str) -> str:
+    """The text without one leading and one trailing vague qualifier."""
+    return _QUALIFIER_AFTER.sub("", _QUALIFIER_BEFORE.sub("", norm, count=1), count=1).strip()
 
 
 class _Reader:
@@ -111,7 +116,7 @@ class _Reader:
     def read(self, norm: str, order: Order | None) -> Period:
         if not norm:
             raise self.fail("the text holds no date")
-        stripped = _QUALIFIER_AFTER.sub("", _QUALIFIER_BEFORE.sub("", norm, count=1), count=1).strip()
+        stripped = _unqualified(norm)
         if stripped != norm and stripped:
             return self._vague(self.read(stripped, order), norm)
         season = read_season(norm, self.raw, self.field, hemisphere=self.hemisphere,
@@ -140,7 +145,7 @@ class _Reader:
                 "Jul-Sep 2012, 2008-2010, 2013-04-01/P3M, austral summer 2012)")
 
     def _vague(self, inner: Period, norm: str) -> Period:
-        qualifier = norm.replace(_QUALIFIER_AFTER.sub("", _QUALIFIER_BEFORE.sub("", norm, count=1)).strip(), "…")
+        qualifier = norm.replace(_unqualified(norm), "…")
         start, end, precision = inner.start, inner.end, inner.precision
         if precision == "day" and start is not None and end is not None:
             start, end, precision = start.replace(day=1), month_end(end), "month"

@@ -173,6 +173,10 @@ CASES = [
     ("around 2005", {}, D(2005, 1, 1), D(2005, 12, 31), "year", ("vague_qualifier",)),
     # a trailing question mark
     ("2005?", {}, D(2005, 1, 1), D(2005, 12, 31), "year", ("vague_qualifier",)),
+    # "c." directly before the year
+    ("c.2005", {}, D(2005, 1, 1), D(2005, 12, 31), "year", ("vague_qualifier",)),
+    # a trailing "(approx.)"
+    ("2005 (approx.)", {}, D(2005, 1, 1), D(2005, 12, 31), "year", ("vague_qualifier",)),
     # vague month: the whole month
     ("early March 2011", {}, D(2011, 3, 1), D(2011, 3, 31), "month", ("vague_qualifier",)),
     # vague day: widened to its whole month
@@ -426,6 +430,8 @@ ERRORS = [
     ("9999-12-31/P1D", "impossible_date", r"beyond the calendar"),
     # year 0 does not exist in the proleptic Gregorian calendar of datetime
     ("0000-W01", "impossible_date", r"year 0 is outside the calendar"),
+    # a qualifier word inside another word is no qualifier ("humid" holds "mid")
+    ("humid season 2012", "season_needs_mapping", r"the 'humid' season has no fixed months"),
     # words with no date
     ("sometime", "unreadable_period", r"no year found"),
     # a day range without a year
