@@ -171,6 +171,24 @@ def _where(project: Project, *path: Any) -> str:
     return str(project.source)
 
 
+def _check_files(project: Project) -> None:
+    """Every file the project names exists (the key and its line are named if not)."""
+    files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
+    if project.gazetteer is not None:
+        files.append((("locate", "gazetteer"), project.gazetteer))
+    used = {c["grid"] for c in project.covariates}
+    for name, spec in project.section("grids").items():
+        if name in used:
+            path = Path(os.path.expanduser(spec["path"]))
+            files.append((("grids", name, "path"), path if path.is_absolute() else project.root / path))
+    for key, path in files:
+        if not path.exists():
+            raise InputError(
+                f"{_where(project, *key)}: the key {'.'.join(key)!r} names {str(path)!r}, which "
+                "does not exist (relative paths are relative to the project file's folder)."
+            )
+
+
 def _check_columns(project: Project, table: pd.DataFrame) -> None:
     """Every column named in the project exists in the studies table."""
     from envlink._util import did_you_mean
@@ -350,6 +368,7 @@ def run_project(
     covs = project.covariates
     steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
                    + bool(targets.get("report")), progress)  # fmt: skip
+    _check_files(project)
     try:
         table = read_table(project.studies, as_text=True)
         input_columns = [str(c) for c in table.columns]
@@ -368,7 +387,7 @@ def run_project(
             gname = cov["grid"]
             if gname not in grids:
                 spec = project.section("grids")[gname]
-                path = Path(spec["path"])
+                path = Path(os.path.expanduser(spec["path"]))
                 path = path if path.is_absolute() else project.root / path
                 grids[gname] = envlink.open_grid(path, variable=spec.get("variable"))
             options = {k: cov[k] for k in ("stat", "window", "spatial", "baseline", "mmm",

@@ -190,6 +190,19 @@ def test_column_missing_from_table_names_key_and_line(tmp_path: Path) -> None:
         run_project(p, progress=False)
 
 
+def test_missing_file_names_key_and_line(tmp_path: Path) -> None:
+    text = BASE.replace('path = "studies.csv"', 'path = "studis.csv"')
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'studis')}: the key 'studies\.path' "
+                                         r"names '.*studis\.csv', which does not exist"):
+        run_project(p, progress=False)
+    text = BASE + '[grids.sst]\npath = "nowhere.nc"\n[[covariates]]\nname = "a"\ngrid = "sst"\n'
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'nowhere')}: the key "
+                                         r"'grids\.sst\.path' names .*nowhere\.nc"):
+        run_project(p, progress=False)
+
+
 def test_run_without_grids_end_to_end_and_force(tmp_path: Path) -> None:
     p = _project(tmp_path)
     result = run_project(p, progress=False)
