@@ -108,6 +108,8 @@ def read_geotiff(
     if "units" not in attrs and "units" in tags:
         attrs["units"] = tags["units"]
     name = str(tags.get("name") or (descriptions[0] if len(set(descriptions)) == 1 and descriptions else "") or path.stem)
+    if name in ("x", "y", "lat", "lon", "time", "band", "nv", "spatial_ref", "time_bnds"):
+        name = "band_data"  # a file stem that would clash with a coordinate name
     n_bands = int(da.sizes["band"])
     if static:
         if n_bands != 1:
@@ -125,7 +127,9 @@ def read_geotiff(
                 "(--band-dates on the command line), or time=False for a single-band static grid."
             )
         stamps, bounds = parse_band_dates(band_dates, n_bands)
-        da = da.rename(band="time").assign_coords(time=("time", stamps, {"standard_name": "time"}))
+        da = da.rename(band="time").assign_coords(
+            time=("time", stamps, {"standard_name": "time", "calendar": "proleptic_gregorian"})
+        )
     geographic = bool(crs is not None and crs.is_geographic)
     da = da.drop_vars([c for c in da.coords if c not in ("time", "x", "y")])
     da.attrs = attrs

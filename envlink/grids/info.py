@@ -86,7 +86,8 @@ class GridInfo:
         e, r = self.extent, self.resolution
         names = [k[:-4] for k in e if k.endswith("_min")]
         space = "; ".join(
-            f"{n} {e[n + '_min']:g}..{e[n + '_max']:g}" + (f" (step {r[n]:g})" if n in r else "") for n in names
+            f"{n} {e[n + '_min']:.10g}..{e[n + '_max']:.10g}" + (f" (step {r[n]:.10g})" if n in r else "")
+            for n in names
         )
         lines.append(f"Space: {space}{'; covers the whole circle of longitude' if self.is_global else ''}")
         lines.append(f"Masked: {100.0 * self.masked_fraction:.1f} % of cells ({self.masked_sample})")

@@ -161,6 +161,12 @@ def _days(a: cftime.datetime, b: cftime.datetime) -> float:
 def step_kind(stamps: np.ndarray) -> tuple[str, float]:
     """Classify the step between stamps: ``daily``, ``monthly``, ``yearly``, ``regular`` or ``single``.
 
+    Stamps at one time of day and whole days apart, at least one day apart once, are
+    daily; stamps on one day of the month (and one time of day) at least 27.5 days
+    apart are monthly, on one day of the year at least 359 days apart yearly (gaps
+    allowed in all three). Otherwise the median step decides: 0.99-1.01 days daily,
+    27.5-31.5 monthly, 359-367 yearly, anything else regular.
+
     Returns the kind and the median step in days.
 
     Examples
@@ -173,6 +179,14 @@ def step_kind(stamps: np.ndarray) -> tuple[str, float]:
         return "single", float("nan")
     diffs = np.array([_days(a, b) for a, b in zip(stamps[:-1], stamps[1:], strict=True)])
     med = float(np.median(diffs))
+    low = float(diffs.min())
+    clock = {(d.hour, d.minute, d.second) for d in stamps}
+    if len(clock) == 1 and 0.99 <= low <= 1.01 and np.allclose(diffs, np.round(diffs), rtol=0, atol=1e-6):
+        return "daily", med  # whole days apart, gaps allowed
+    if len(clock) == 1 and len({(d.month, d.day) for d in stamps}) == 1 and low >= 359.0:
+        return "yearly", med
+    if len(clock) == 1 and len({d.day for d in stamps}) == 1 and low >= 27.5:
+        return "monthly", med  # same day of every month, gaps allowed
     if 0.99 <= med <= 1.01:
         return "daily", med
     if 27.5 <= med <= 31.5:
@@ -241,7 +255,9 @@ def _check_cells(starts: np.ndarray, ends: np.ndarray, variable: str) -> None:
             raise GridError(
                 f"The time steps {i - 1} and {i} of {variable!r} overlap or are not in order "
                 f"(cells [{starts[i - 1].isoformat()}, {ends[i - 1].isoformat()}) and "
-                f"[{starts[i].isoformat()}, {ends[i].isoformat()})); two stamps in one cell?"
+                f"[{starts[i].isoformat()}, {ends[i].isoformat()})). Two stamps fall in one cell, or "
+                "the steps are too irregular to infer cells: give the cells explicitly (a CF bounds "
+                "variable, or band_dates=[(start, end), ...] for a GeoTIFF)."
             )
 
 

@@ -120,3 +120,9 @@ def test_project_sites_matches_pyproj():
     assert_allclose(y, ey, rtol=0.0, atol=1e-6)
     # On the zone's central meridian (147° E) the false easting is exactly 500 000 m.
     assert_allclose(x[0], 500_000.0, rtol=0.0, atol=1e-6)
+
+
+def test_file_stem_clashing_with_a_coordinate_name(tmp_path):
+    p = _write_tif(tmp_path / "x.tif", np.ones((1, NY, NX), dtype="float32"), units="degC")
+    g = open_grid(p, band_dates=["2001-01-01"])
+    assert g.name == "band_data" and g.attrs["calendar"] == "proleptic_gregorian"

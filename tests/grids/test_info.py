@@ -91,3 +91,17 @@ def test_info_of_an_open_grid():
     info = grid_info(g)
     assert info.time["steps"] == 24 and info.time["gaps"] == []
     assert info.masked_fraction == 0.0
+
+
+def test_daily_gaps_and_monthly_gaps_by_day_of_month(tmp_path):
+    t = np.array([0.0, 1.0, 2.0, 6.0, 7.0])  # 4-6 January 2000 missing
+    p = simple_grid(tmp_path / "d.nc", np.zeros((5, 3, 4)), lat=LAT, lon=LON, time=t)
+    info = grid_info(p)
+    assert info.time["step"] == "daily"
+    assert info.time["gaps"] == [{"from": "2000-01-04T00:00:00", "to": "2000-01-07T00:00:00", "missing_steps": 3}]
+    # Three monthly stamps on day 1 with a two-month hole: still monthly (one day of the month).
+    stamps = [cftime.datetime(2001, m, 1, calendar="standard") for m in (1, 2, 5)]
+    t2 = np.asarray(cftime.date2num(stamps, "days since 2000-01-01", calendar="standard"), dtype=float)
+    p2 = simple_grid(tmp_path / "m.nc", np.zeros((3, 3, 4)), lat=LAT, lon=LON, time=t2)
+    info2 = grid_info(p2)
+    assert info2.time["step"] == "monthly" and info2.time["gaps"][0]["missing_steps"] == 2
