@@ -108,7 +108,9 @@ def _finish(
     bad: NDArray[np.bool_],
     items: list[tuple[str, NDArray[np.bool_]]],
 ) -> EffectResult:
-    bad = bad | ~np.isfinite(effect) | ~np.isfinite(variance)
+    overflow = ~bad & ~(np.isfinite(effect) & np.isfinite(variance))
+    items = [*items, ("nonfinite_result", overflow)]  # e.g. numbers too large for float64
+    bad = bad | overflow
     effect = np.where(bad, np.nan, effect)
     variance = np.where(bad, np.nan, variance)
     return EffectResult(effect, variance, _flags(effect.size, items))

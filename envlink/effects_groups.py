@@ -129,12 +129,17 @@ def group_effects(
     if kind != "fisher_z":
         non_binary = ok & (values[0] != 0) & (values[0] != 1)
         ok &= ~non_binary
-    c_ok = codes[ok]
+    all_ok = bool(ok.all())
+
+    def used(a: NDArray[np.generic]) -> NDArray[np.generic]:  # no copy when every record counts
+        return a if all_ok else a[ok]
+
+    c_ok = used(codes)
     n = np.bincount(c_ok, minlength=n_groups)
-    n_excluded = np.bincount(codes[~ok], minlength=n_groups) if not ok.all() else np.zeros(n_groups, np.int64)
+    n_excluded = np.zeros(n_groups, np.int64) if all_ok else np.bincount(codes[~ok], minlength=n_groups)
     with np.errstate(all="ignore"):
         if kind == "fisher_z":
-            xo, yo = values[0][ok], values[1][ok]
+            xo, yo = used(values[0]), used(values[1])
             mx = np.bincount(c_ok, weights=xo, minlength=n_groups) / n
             my = np.bincount(c_ok, weights=yo, minlength=n_groups) / n
             dx = xo - mx[c_ok]
@@ -153,7 +158,7 @@ def group_effects(
             flags = res.flags
             _add_flag(flags, constant, "zero_variance_in_group")
         else:
-            stat = np.bincount(c_ok, weights=values[0][ok], minlength=n_groups).astype(np.int64)
+            stat = np.bincount(c_ok, weights=used(values[0]), minlength=n_groups).astype(np.int64)
             if kind == "logit_proportion":
                 res = logit_proportion(stat, n, correction=correction, zero_cells=zero_cells)
             elif kind == "arcsine_proportion":

@@ -231,6 +231,7 @@ def test_continuity_correction_rules() -> None:
         (lambda: ef.fisher_z([1.5], [20]), "correlation_out_of_range"),
         (lambda: ef.fisher_z([-1.0], [20]), "correlation_at_bound"),
         (lambda: ef.fisher_z([0.3], [3]), "sample_size_at_most_3"),
+        (lambda: ef.hedges_g([1e308], [1], [10], [-1e308], [1], [10]), "nonfinite_result"),
     ],
 )
 def test_impossible_input_gives_flagged_nan_row(call, flag: str) -> None:  # type: ignore[no-untyped-def]
@@ -322,3 +323,35 @@ def test_effect_sizes_errors() -> None:
         envlink.effect_sizes(t, "logit_proportion", events="diseased", total="examined")
     with pytest.raises(InputError, match="'exact' parameter of effect_sizes"):
         envlink.effect_sizes(t, "logit_proportion", events="diseased", total="examined", name="lp", exact=False)
+
+
+_NAN_FLAGS = {
+    "missing_input", "nonfinite_input", "negative_count", "zero_total", "events_exceed_total",
+    "zero_cell", "sample_size_below_2", "negative_sd", "zero_sd", "nonpositive_mean",
+    "correlation_out_of_range", "correlation_at_bound", "sample_size_at_most_3", "nonfinite_result",
+}  # fmt: skip
+
+
+def test_any_numbers_give_a_value_or_a_reason() -> None:
+    # property (common practice for table stages): no row raises, and a row has no value
+    # exactly when one of its flags says why
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    number = st.one_of(st.floats(allow_nan=True, allow_infinity=True, width=64), st.integers(-5, 300))
+
+    @settings(max_examples=150, deadline=None)
+    @given(st.sampled_from(sorted(ef.KINDS)), st.lists(st.lists(number, min_size=6, max_size=6), min_size=1, max_size=8))
+    def check(kind: str, rows: list[list[float]]) -> None:
+        func, needed, _ = ef.KINDS[kind]
+        cols = np.array(rows, dtype=np.float64)[:, : len(needed)].T
+        res = func(*cols)
+        assert res.effect.shape == res.variance.shape == res.flags.shape == (len(rows),)
+        for e, v, f in zip(res.effect, res.variance, res.flags, strict=True):
+            reasons = set(f.split(";")) & _NAN_FLAGS
+            if np.isnan(e) or np.isnan(v):
+                assert reasons, f
+            else:
+                assert not reasons and np.isfinite(e) and np.isfinite(v)
+
+    check()

@@ -112,3 +112,14 @@ def test_many_groups_are_vectorised() -> None:
     assert time.perf_counter() - start < 5.0
     assert len(out) == 200_000 and (out["n"] == 5).all()
     assert_allclose(out["variance"], 0.5, rtol=1e-15)
+
+
+def test_empty_records_and_categorical_groups() -> None:
+    empty = pd.DataFrame({"g": pd.Series([], dtype=object), "o": pd.Series([], dtype=float)})
+    out = envlink.group_effects(empty, "g", "logit_proportion", outcome="o")
+    assert len(out) == 0 and list(out.columns)[-1] == "effect_flags"
+    cat = pd.DataFrame({"g": pd.Categorical(["b", "a", "b"], categories=["a", "b", "z"]), "o": [1, 0, 0]})
+    out = envlink.group_effects(cat, "g", "logit_proportion", outcome="o")
+    # only observed groups, in order of first appearance (common practice: no empty groups)
+    assert out["g"].astype(str).tolist() == ["b", "a"] and out["events"].tolist() == [1, 0]
+    assert_allclose(out["effect"], [0.0, math.log(0.5 / 1.5)], rtol=1e-12, atol=1e-15)
