@@ -118,7 +118,7 @@ class _Reader:
             raise self.fail("the text holds no date")
         stripped = _unqualified(norm)
         if stripped != norm and stripped:
-            return self._vague(self.read(stripped, order), norm)
+            return self._vague(self.read(stripped, order))
         season = read_season(norm, self.raw, self.field, hemisphere=self.hemisphere,
                              plain_south=self.plain_south, mapping=self.mapping)
         if season is not None:
@@ -133,7 +133,7 @@ class _Reader:
     def _unreadable_reason(self, norm: str) -> str:
         if TWO_DIGIT_YEAR.fullmatch(norm) or re.fullmatch(r"\d{1,2}[/.\-]\d{2}", norm):
             return "two-digit years are not read (the century is unknown); write the year in full"
-        if re.search(r"\b(?:before|after|since|prior to|by|pre|post)\b", norm):
+        if re.search(r"\b(?:before|after|since|prior to|by|pre|post|present|ongoing|now)\b", norm):
             return "an open-ended period has no window; give its start and end"
         if re.search(r"(?:spring|summer|autumn|fall|winter)-(?:spring|summer|autumn|fall|winter)", norm):
             return "a range of seasons is not read; write the months instead (e.g. Mar-Aug 2004)"
@@ -144,14 +144,18 @@ class _Reader:
         return ("no date form recognised (e.g. 2011-03-05, March 2011, 3-9 March 2011, "
                 "Jul-Sep 2012, 2008-2010, 2013-04-01/P3M, austral summer 2012)")
 
-    def _vague(self, inner: Period, norm: str) -> Period:
-        qualifier = norm.replace(_unqualified(norm), "…")
+    def _vague(self, inner: Period) -> Period:
+        if "vague_qualifier" in inner.flags:
+            return inner  # already widened (a qualifier inside a range)
         start, end, precision = inner.start, inner.end, inner.precision
         if precision == "day" and start is not None and end is not None:
             start, end, precision = start.replace(day=1), month_end(end), "month"
-        unit = {"years": "range of years"}.get(str(precision), str(precision))
-        note = (f"{self.raw.strip()!r} is qualified ({qualifier.strip()!r}); the window is the whole "
-                f"{unit} it names, not a guessed part of it")
+        unit = str(precision)
+        if start is not None and end is not None and precision == "month" and (start.year, start.month) != (
+                end.year, end.month):
+            unit = "months"
+        note = (f"{self.raw.strip()!r} has a vague qualifier (such as mid, early, late, about); the "
+                f"window is the whole {unit} named, not a guessed part of it")
         if start is not None:
             note += f" ({start}..{end})"
         return Period(start, end, precision, ("vague_qualifier", *inner.flags), (note, *inner.notes))
@@ -269,10 +273,15 @@ class _Reader:
             if not left or not right:
                 continue
             points: list[Point | None] = []
-            needs_order = False
+            needs_order = vague = False
             for side in (left, right):
                 try:
-                    points.append(read_point(side, order=order, text=self.raw, field=self.field, partial=True))
+                    point = read_point(side, order=order, text=self.raw, field=self.field, partial=True)
+                    if point is None and _unqualified(side) not in (side, ""):
+                        point = read_point(_unqualified(side), order=order, text=self.raw,
+                                           field=self.field, partial=True)
+                        vague = vague or point is not None
+                    points.append(point)
                 except NeedsOrder:
                     needs_order = True
                     points.append(Point())
@@ -290,5 +299,6 @@ class _Reader:
                         f"{b.year - 1}-{MONTH_ABBR[b.month - 1]} {b.year})")
                 if (a.month, b.month) == (12, 2):
                     hint = hint[:-1] + f", or DJF {b.year})"
-            return self._between(*filled, hint=hint)
+            period = self._between(*filled, hint=hint)
+            return self._vague(period) if vague else period
         return None

@@ -181,6 +181,10 @@ CASES = [
     ("early March 2011", {}, D(2011, 3, 1), D(2011, 3, 31), "month", ("vague_qualifier",)),
     # vague day: widened to its whole month
     ("ca. 15 March 2011", {}, D(2011, 3, 1), D(2011, 3, 31), "month", ("vague_qualifier",)),
+    # qualifiers on the ends of a range: the whole months from the first to the last
+    ("mid-March to late April 2011", {}, D(2011, 3, 1), D(2011, 4, 30), "month", ("vague_qualifier",)),
+    # qualified years in a range: the whole years
+    ("late 2009 - early 2011", {}, D(2009, 1, 1), D(2011, 12, 31), "years", ("vague_qualifier",)),
     # numeric date with a field > 12: unambiguous, day first
     ("25/06/2011", {}, D(2011, 6, 25), D(2011, 6, 25), "day", ()),
     # numeric date with a field > 12: unambiguous, month first
@@ -420,6 +424,8 @@ ERRORS = [
     ("spring-summer 2004", "unreadable_period", r"range of seasons is not read"),
     # an open-ended period
     ("before 2005", "unreadable_period", r"open-ended period"),
+    # a period running to the present has no end date
+    ("Jan 2011 - present", "unreadable_period", r"open-ended period"),
     # a duration alone
     ("P3M", "unreadable_period", r"duration alone"),
     # a fractional month duration
