@@ -67,6 +67,11 @@ class Design:
         return y, v, X
 
 
+def _py(x: Any) -> Any:
+    """A plain Python scalar for messages (no ``np.int64(...)`` reprs)."""
+    return x.item() if isinstance(x, np.generic) else x
+
+
 def _formula_text(moderators: str | None, intercept: bool) -> str:
     rhs = (moderators or "").strip()
     if not rhs:
@@ -140,11 +145,11 @@ def design_from_frame(data: pd.DataFrame, *, effect: str, variance: str,
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
             raise InputError(
-                f"Moderator term {name!r} is not finite in row {labels[i]!r} "
-                f"(value {X[i, j]!r}); check the columns used by {moderators!r}."
+                f"Moderator term {name!r} is not finite in row {_py(labels[i])!r} "
+                f"(value {float(X[i, j])!r}); check the columns used by {moderators!r}."
             )
     names = ([INTERCEPT] if has_int else []) + list(Xdf.columns)
-    dropped = list(np.asarray(data.index)[~keep])
+    dropped = [_py(x) for x in np.asarray(data.index)[~keep]]
     groups = {role: sub[col].to_numpy() for role, col in extra.items() if col}
     return Design(yk, vk, X, has_int, names, labels, len(dropped), dropped, mm.model_spec, groups,
                   keep, np.asarray(data.index))
@@ -156,7 +161,7 @@ def _numeric(s: pd.Series, name: str) -> pd.Series:
     if bad.any():
         i = bad.to_numpy().nonzero()[0][0]
         raise InputError(
-            f"Column {name!r} must hold numbers; row {s.index[i]!r} holds {s.iloc[i]!r}."
+            f"Column {name!r} must hold numbers; row {_py(s.index[i])!r} holds {s.iloc[i]!r}."
         )
     return out.astype(np.float64)
 
@@ -165,10 +170,10 @@ def _check_variances(v: np.ndarray, labels: np.ndarray | None, name: str) -> Non
     bad = ~(np.isfinite(v) & (v > 0))
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        where = labels[i] if labels is not None else i
+        where = _py(labels[i]) if labels is not None else i
         raise ModelError(
             f"Sampling variance {name!r} must be positive and finite; row {where!r} has "
-            f"{v[i]!r} ({int(bad.sum())} such row(s)). Fix or remove these rows; a zero "
+            f"{float(v[i])!r} ({int(bad.sum())} such row(s)). Fix or remove these rows; a zero "
             "variance usually means a zero cell that needs a continuity correction."
         )
 
@@ -177,8 +182,8 @@ def _check_finite(y: np.ndarray, labels: np.ndarray | None, name: str) -> None:
     bad = ~np.isfinite(y)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        where = labels[i] if labels is not None else i
-        raise ModelError(f"Effect {name!r} must be finite; row {where!r} has {y[i]!r}.")
+        where = _py(labels[i]) if labels is not None else i
+        raise ModelError(f"Effect {name!r} must be finite; row {where!r} has {float(y[i])!r}.")
 
 
 def _is_dask(a: object) -> bool:

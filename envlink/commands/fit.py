@@ -1,0 +1,106 @@
+"""``envlink fit``: a mixed-effects meta-regression of a table's effects on moderators."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import warnings
+from typing import Any
+
+from envlink.errors import InputError
+
+__all__ = ["register", "run"]
+
+DESCRIPTION = """\
+Fit a mixed-effects meta-regression to a table with one effect size and its
+sampling variance per row. Moderators are a formula over the table's columns
+(numeric terms, C(col) for categories, C(col, Treatment('ref')) for a reference
+level, a:b interactions, I(x**2) polynomials, bs(x, df=3) splines). The text
+summary goes to stdout; --json writes the result as one JSON object. Rows with a
+missing effect, variance or moderator are dropped and reported."""
+
+EPILOG = """\
+examples:
+  envlink fit enriched.csv --effect yi --variance vi --moderators "sst_anom + depth_m"
+  envlink fit enriched.parquet --effect yi --variance vi --nested study --cluster study \\
+      --test knapp-hartung --json fit.json
+  envlink fit enriched.csv --effect yi --variance vi --moderators dhw_max --permutations 999 --seed 1
+
+Exit codes: 0 fitted (read the notes for warnings), 2 bad input (missing column,
+bad formula or option), 1 the model cannot be fitted. Methods: docs/methods.md."""
+
+_METHODS = ("REML", "ML", "DL", "PM", "HE", "SJ")
+
+
+def register(subparsers: Any) -> None:
+    """Add the ``fit`` sub-command to the ``envlink`` parser."""
+    p = subparsers.add_parser(
+        "fit", help="mixed-effects meta-regression of effects on moderators",
+        description=DESCRIPTION, epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("table", metavar="TABLE", help="input table (.csv/.tsv/.txt, .parquet, .xlsx)")
+    p.add_argument("--effect", metavar="COL", required=True, help="column with the effect sizes")
+    p.add_argument("--variance", metavar="COL", required=True,
+                   help="column with the sampling variances (positive)")
+    p.add_argument("--moderators", metavar="FORMULA", default=None,
+                   help='right-hand side of a formula, e.g. "sst + C(method)"; default: none')
+    p.add_argument("--method", default="REML", type=str.upper, choices=_METHODS,
+                   help="tau² estimator (default REML; --nested needs REML or ML)")
+    p.add_argument("--tau2", metavar="VALUE", type=float, default=None,
+                   help="fix tau² at VALUE instead of estimating it (0: fixed-effect model)")
+    p.add_argument("--test", default="z", choices=("z", "knapp-hartung"),
+                   help="z tests, or Knapp-Hartung t and F tests (default z)")
+    p.add_argument("--truncate-kh", action="store_true",
+                   help="with knapp-hartung, use the scale max(1, q)")
+    p.add_argument("--nested", metavar="COL",
+                   help="study column: effects nested in studies (two variance components)")
+    p.add_argument("--cluster", metavar="COL",
+                   help="cluster column: CR2 robust standard errors, Satterthwaite df")
+    p.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    p.add_argument("--permutations", metavar="N", type=int, default=0,
+                   help="also run a permutation test of the moderators with N permutations")
+    p.add_argument("--seed", metavar="S", type=int, default=None,
+                   help="random seed of the permutation test (for reproducible p-values)")
+    p.add_argument("--json", metavar="OUT", default=None, help="write the result as JSON to OUT")
+    p.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``envlink fit``; returns the exit code."""
+    from envlink._util import atomic_path
+    from envlink.metareg.model import MetaRegression
+    from envlink.tables import read_table, require_columns
+
+    if not 0 < args.level < 1:
+        raise InputError(f"--level must be between 0 and 1; got {args.level}.")
+    if args.permutations < 0:
+        raise InputError(f"--permutations must be 0 or more; got {args.permutations}.")
+    df = read_table(args.table)
+    require_columns(df, [args.effect, args.variance, args.nested, args.cluster])
+    model = MetaRegression(
+        method=args.method, test=args.test, tau2=args.tau2, moderators=args.moderators,
+        nested=args.nested, cluster=args.cluster, truncate_kh=args.truncate_kh, level=args.level,
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # every warning is in the result's notes
+        model.fit(df, effect=args.effect, variance=args.variance)
+        result = model.to_dict()
+        perm = None
+        if args.permutations:
+            perm = model.permutation_test(args.permutations, seed=args.seed).to_dict()
+            result = model.to_dict()
+    print(model.summary())
+    if perm is not None:
+        print(f"\nPermutation test ({perm['n_permutations']} permutations, seed {perm['seed']}):")
+        print(f"  Q_M p = {perm['Q_M_p']:.4f}")
+        for c in perm["coefficients"]:
+            print(f"  {c['term']}: p = {c['p']:.4f}")
+        result["permutation"] = perm
+    for note in result["warnings"]:
+        print(f"envlink fit: note: {note}", file=sys.stderr)
+    if args.json:
+        with atomic_path(args.json) as tmp:
+            tmp.write_text(json.dumps(result, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+    return 0
