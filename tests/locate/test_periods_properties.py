@@ -253,3 +253,22 @@ def test_any_text_gives_a_period_none_or_a_period_error(text: str) -> None:
         return
     if period is not None and period.start is not None:
         assert period.end is not None and period.start <= period.end
+
+
+@PROFILE
+@given(st.integers(180, 219), st.integers(1, 4), YEARS, st.booleans())
+def test_decades_and_quarters(decade: int, quarter: int, year: int, year_first: bool) -> None:
+    assert window(f"{decade * 10}s") == (dt.date(decade * 10, 1, 1), dt.date(decade * 10 + 9, 12, 31), "years")
+    text = f"{year}-Q{quarter}" if year_first else f"Q{quarter} {year}"
+    first = dt.date(year, 3 * quarter - 2, 1)
+    assert window(text) == (first, month_window(year, 3 * quarter)[1], "month")
+
+
+@PROFILE
+@given(day_texts(), st.sampled_from(["mid-", "early ", "late ", "ca. ", "around ", "c. ", "~"]))
+def test_a_vague_qualifier_gives_a_superset_window(case, qualifier: str) -> None:
+    # Policy: the whole containing unit (a day widens to its month), never a guessed part.
+    text, day, options = case
+    period = parse_period(qualifier + text, **options)  # type: ignore[arg-type]
+    assert period is not None and period.flags == ("vague_qualifier",)
+    assert (period.start, period.end) == month_window(day.year, day.month)
