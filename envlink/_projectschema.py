@@ -3,20 +3,25 @@
 :func:`validate` checks a parsed project (a ``dict`` from :mod:`tomllib`) against
 :data:`SECTIONS` and raises :class:`~envlink.errors.InputError` naming the key, the
 line of the file it is on, and the allowed keys or values. Line numbers are found
-by scanning the text (``tomllib`` does not report them).
+by scanning the text (``tomllib`` does not report them). :func:`check_files` and
+:func:`check_columns` then check the files and columns a project names, with the
+same located messages.
 """
 
 from __future__ import annotations
 
+import os
 import re
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from envlink._util import did_you_mean
 from envlink.errors import InputError
 
-__all__ = ["SECTIONS", "KeySpec", "key_lines", "validate", "STATS", "WINDOWS", "SPATIAL_RULES"]
+__all__ = ["SECTIONS", "KeySpec", "key_lines", "validate", "where", "check_files", "check_columns",
+           "formula_columns", "STATS", "WINDOWS", "SPATIAL_RULES"]
 
 EFFECT_KINDS = (
     "logit_proportion", "arcsine_proportion", "log_odds_ratio", "log_risk_ratio", "hedges_g",
@@ -279,3 +284,61 @@ def validate(data: Mapping[str, Any], text: str, source: str) -> None:
         seen.add(table["name"])
     if "model" in data and "effects" not in data:
         raise err.fail(("model",), "[model] needs an [effects] section to fit.")
+
+
+# ---------------------------------------------------------------- checks against the files
+def where(project: Any, *path: Any) -> str:
+    """``FILE, line N`` of the deepest part of ``path`` found in the project file."""
+    lines = key_lines(project.text)
+    for n in range(len(path), 0, -1):
+        if tuple(path[:n]) in lines:
+            return f"{project.source}, line {lines[tuple(path[:n])]}"
+    return str(project.source)
+
+
+def check_files(project: Any) -> None:
+    """Every file the project names exists (the key and its line are named if not)."""
+    files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
+    if project.gazetteer is not None:
+        files.append((("locate", "gazetteer"), project.gazetteer))
+    used = {c["grid"] for c in project.covariates}
+    for name, spec in project.section("grids").items():
+        if name in used:
+            path = Path(os.path.expanduser(spec["path"]))
+            files.append((("grids", name, "path"), path if path.is_absolute() else project.root / path))
+    for key, path in files:
+        if not path.exists():
+            raise InputError(
+                f"{where(project, *key)}: the key {'.'.join(key)!r} names {str(path)!r}, which "
+                "does not exist (relative paths are relative to the project file's folder)."
+            )
+
+
+def check_columns(project: Any, table: Any) -> None:
+    """Every column named in the project exists in the studies table."""
+    have = [str(c) for c in table.columns]
+    wanted: list[tuple[tuple[str, ...], str]] = []
+    if "study" in project.section("studies"):
+        wanted.append((("studies", "study"), project.section("studies")["study"]))
+    for key in ("lat", "lon", "coords", "site", "period", "start", "end"):
+        if key in project.section("locate"):
+            wanted.append((("locate", key), project.section("locate")[key]))
+    for role, col in project.section("effects").get("columns", {}).items():
+        wanted.append((("effects", "columns", role), col))
+    for key in ("nested", "cluster"):
+        if key in project.section("model"):
+            wanted.append((("model", key), project.section("model")[key]))
+    for path, col in wanted:
+        if col not in have:
+            dotted = ".".join(path)
+            raise InputError(
+                f"{where(project, *path)}: the key {dotted!r} names column {col!r}, which the "
+                f"studies table {str(project.studies)!r} does not have.{did_you_mean(col, have)} "
+                f"Columns: {', '.join(repr(c) for c in have)}."
+            )
+
+
+def formula_columns(formula: str, columns: list[str]) -> list[str]:
+    """Columns of ``columns`` that the formula names."""
+    tokens = set(re.findall(r"[A-Za-z_][A-Za-z0-9_.]*", formula))
+    return [c for c in columns if c in tokens]

@@ -12,7 +12,6 @@ report; :func:`run_demo` runs the bundled invented demo.
 from __future__ import annotations
 
 import os
-import re
 import sys
 import tempfile
 import time
@@ -25,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from envlink._projectschema import validate
+from envlink._projectschema import check_columns, check_files, formula_columns, validate, where
 from envlink.errors import InputError
 
 __all__ = ["Project", "RunResult", "load_project", "run_project", "run_demo"]
@@ -161,65 +160,6 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     )  # fmt: skip
 
 
-def _where(project: Project, *path: Any) -> str:
-    from envlink._projectschema import key_lines
-
-    lines = key_lines(project.text)
-    for n in range(len(path), 0, -1):
-        if tuple(path[:n]) in lines:
-            return f"{project.source}, line {lines[tuple(path[:n])]}"
-    return str(project.source)
-
-
-def _check_files(project: Project) -> None:
-    """Every file the project names exists (the key and its line are named if not)."""
-    files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
-    if project.gazetteer is not None:
-        files.append((("locate", "gazetteer"), project.gazetteer))
-    used = {c["grid"] for c in project.covariates}
-    for name, spec in project.section("grids").items():
-        if name in used:
-            path = Path(os.path.expanduser(spec["path"]))
-            files.append((("grids", name, "path"), path if path.is_absolute() else project.root / path))
-    for key, path in files:
-        if not path.exists():
-            raise InputError(
-                f"{_where(project, *key)}: the key {'.'.join(key)!r} names {str(path)!r}, which "
-                "does not exist (relative paths are relative to the project file's folder)."
-            )
-
-
-def _check_columns(project: Project, table: pd.DataFrame) -> None:
-    """Every column named in the project exists in the studies table."""
-    from envlink._util import did_you_mean
-
-    have = [str(c) for c in table.columns]
-    wanted: list[tuple[tuple[str, ...], str]] = []
-    if "study" in project.section("studies"):
-        wanted.append((("studies", "study"), project.section("studies")["study"]))
-    for key in ("lat", "lon", "coords", "site", "period", "start", "end"):
-        if key in project.section("locate"):
-            wanted.append((("locate", key), project.section("locate")[key]))
-    for role, col in project.section("effects").get("columns", {}).items():
-        wanted.append((("effects", "columns", role), col))
-    for key in ("nested", "cluster"):
-        if key in project.section("model"):
-            wanted.append((("model", key), project.section("model")[key]))
-    for path, col in wanted:
-        if col not in have:
-            dotted = ".".join(path)
-            raise InputError(
-                f"{_where(project, *path)}: the key {dotted!r} names column {col!r}, which the "
-                f"studies table {str(project.studies)!r} does not have.{did_you_mean(col, have)} "
-                f"Columns: {', '.join(repr(c) for c in have)}."
-            )
-
-
-def _formula_columns(formula: str, columns: list[str]) -> list[str]:
-    tokens = set(re.findall(r"[A-Za-z_][A-Za-z0-9_.]*", formula))
-    return [c for c in columns if c in tokens]
-
-
 def _targets(project: Project, out: Path) -> dict[str, Path]:
     exp = project.section("export")
     name = exp.get("name", "enriched")
@@ -273,7 +213,7 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
     formula = model.get("moderators")
     needed = [effect, variance]
     if formula:
-        needed += _formula_columns(formula, [str(c) for c in table.columns])
+        needed += formula_columns(formula, [str(c) for c in table.columns])
     needed += [model[k] for k in ("nested", "cluster") if k in model]
     ok = np.ones(len(table), dtype=bool)
     if "locate_status" in table:
@@ -287,7 +227,7 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
     ok &= pd.to_numeric(table[variance], errors="coerce").to_numpy(dtype=float) > 0
     if ok.sum() < 3:
         raise InputError(
-            f"{_where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
+            f"{where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
             f"and every moderator ({', '.join(needed)}); the model needs at least 3."
         )
     data = table.loc[ok].reset_index(drop=True)
@@ -368,11 +308,11 @@ def run_project(
     covs = project.covariates
     steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
                    + bool(targets.get("report")), progress)  # fmt: skip
-    _check_files(project)
+    check_files(project)
     try:
         table = read_table(project.studies, as_text=True)
         input_columns = [str(c) for c in table.columns]
-        _check_columns(project, table)
+        check_columns(project, table)
         steps.done("read")
         loc = project.section("locate")
         kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}
@@ -409,7 +349,7 @@ def run_project(
                 table = envlink.effect_sizes(table, eff["kind"], name=effect, variance_name=variance,
                                              **extra, **eff.get("columns", {}))  # fmt: skip
             except (InputError, TypeError) as exc:
-                raise InputError(f"{_where(project, 'effects', 'columns')}: {exc}") from exc
+                raise InputError(f"{where(project, 'effects', 'columns')}: {exc}") from exc
             provenance["effects"] = {k: v for k, v in eff.items()}
             steps.done("effects")
         fit, fit_rows, egger, permutation_p = None, 0, None, None
@@ -437,7 +377,7 @@ def run_project(
         if "report" in targets:
             moderator = exp.get("moderator")
             if moderator is None and "model" in project.data:
-                mods = _formula_columns(project.section("model").get("moderators") or "",
+                mods = formula_columns(project.section("model").get("moderators") or "",
                                         [str(c) for c in table.columns])  # fmt: skip
                 moderator = mods[0] if mods else None
             field_grid = None
@@ -505,21 +445,3 @@ def run_demo(
     finally:
         if tmp is not None:
             tmp.cleanup()
-
-
-def _summary_lines(result: RunResult) -> list[str]:
-    """Plain-words summary of a run, for the command line."""
-    t = result.table
-    lines = [f"{len(t)} rows read"]
-    if "locate_status" in t:
-        counts = t["locate_status"].astype(str).value_counts()
-        lines.append("located: " + ", ".join(f"{counts.get(k, 0)} {k}"
-                                             for k in ("ok", "flagged", "rejected")))  # fmt: skip
-    if result.fit is not None:
-        d: Mapping[str, Any] = result.fit.to_dict()
-        lines.append(f"model: k = {d.get('k')} rows, method {d.get('method')}, test {d.get('test')}")
-        for c in d.get("coefficients", []):
-            lines.append(f"  {c['term']}: {c['estimate']:.4g} "
-                         f"[{c['ci_low']:.4g}, {c['ci_high']:.4g}], p = {c['p']:.3g}")  # fmt: skip
-    lines.append(f"{result.windows_tried} covariate window(s) tried")
-    return lines

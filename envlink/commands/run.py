@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Mapping
 from typing import Any
 
-__all__ = ["register", "run"]
+__all__ = ["register", "run", "summary_lines", "report_result"]
 
 DESCRIPTION = """\
 Run the whole pipeline described by a TOML project file: locate the studies'
@@ -43,9 +44,7 @@ def register(subparsers: Any) -> None:
 
 def report_result(result: Any) -> None:
     """Summary to stderr, written paths to stdout (shared with ``envlink demo``)."""
-    from envlink.project import _summary_lines
-
-    for line in _summary_lines(result):
+    for line in summary_lines(result):
         print(line, file=sys.stderr)
     for path in result.paths.values():
         print(path)
@@ -59,3 +58,21 @@ def run(args: argparse.Namespace) -> int:
                          progress=False if args.no_progress else None)  # fmt: skip
     report_result(result)
     return 0
+
+
+def summary_lines(result: Any) -> list[str]:
+    """Plain-words summary of a run, for the command line."""
+    t = result.table
+    lines = [f"{len(t)} rows read"]
+    if "locate_status" in t:
+        counts = t["locate_status"].astype(str).value_counts()
+        lines.append("located: " + ", ".join(f"{counts.get(k, 0)} {k}"
+                                             for k in ("ok", "flagged", "rejected")))  # fmt: skip
+    if result.fit is not None:
+        d: Mapping[str, Any] = result.fit.to_dict()
+        lines.append(f"model: k = {d.get('k')} rows, method {d.get('method')}, test {d.get('test')}")
+        for c in d.get("coefficients", []):
+            lines.append(f"  {c['term']}: {c['estimate']:.4g} "
+                         f"[{c['ci_low']:.4g}, {c['ci_high']:.4g}], p = {c['p']:.3g}")  # fmt: skip
+    lines.append(f"{result.windows_tried} covariate window(s) tried")
+    return lines
