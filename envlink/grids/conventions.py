@@ -107,6 +107,15 @@ def decode_values(
     ([nan, 20.0, 21.0], '_FillValue -32768 masked')
     """
     notes: list[str] = []
+    attrs = dict(attrs)
+    if str(attrs.get("_Unsigned", "")).strip().lower() == "true" and raw.dtype.kind == "i":
+        # netCDF-3 has no unsigned types; "_Unsigned" says the bytes are unsigned integers.
+        uns = np.dtype(f"u{raw.dtype.itemsize}")
+        raw = raw.astype(uns)
+        for key in ("_FillValue", "missing_value", "valid_min", "valid_max", "valid_range"):
+            if key in attrs and np.asarray(attrs[key]).dtype.kind == "i":
+                attrs[key] = np.asarray(attrs[key]).astype(raw.dtype.str.replace("u", "i")).astype(uns)
+        notes.append(f"_Unsigned: stored signed integers read as {uns.name}")
     stored = raw.dtype
     mask = None
 

@@ -80,6 +80,21 @@ def choose_variable(ds: xr.Dataset, variable: str | None, label: str) -> str:
     )
 
 
+def _grid_mapping_wkt(attrs: Mapping[str, Any]) -> str | None:
+    """The CRS of a CF grid-mapping variable (§5.6) as WKT: ``crs_wkt``, or built by pyproj."""
+    wkt = attrs.get("crs_wkt") or attrs.get("spatial_ref")
+    if wkt:
+        return str(wkt)
+    if "grid_mapping_name" not in attrs:
+        return None
+    try:
+        from pyproj import CRS
+
+        return CRS.from_cf(dict(attrs)).to_wkt()
+    except Exception:  # noqa: BLE001 - an incomplete grid mapping gives no CRS
+        return None
+
+
 def _coord_values(v: xr.DataArray) -> np.ndarray:
     vals = np.asarray(v.values)
     if "scale_factor" in v.attrs or "add_offset" in v.attrs:
@@ -174,7 +189,7 @@ def normalise_dataset(
         latm = find_axis(ds, variable, "lat", opts.lat)
         lonm = find_axis(ds, variable, "lon", opts.lon)
         gm = str(raw.attrs.get("grid_mapping", "")).split(":")[0].strip()
-        gm_wkt = ds[gm].attrs.get("crs_wkt") or ds[gm].attrs.get("spatial_ref") if gm in ds.variables else None
+        gm_wkt = _grid_mapping_wkt(ds[gm].attrs) if gm in ds.variables else None
         if (latm is None or lonm is None) and gm_wkt and opts.lat is None:
             crs_wkt = str(gm_wkt)
         elif latm is None or lonm is None:

@@ -146,7 +146,10 @@ def decode_time(
 
 
 def _floor_day(d: cftime.datetime) -> cftime.datetime:
-    return cftime.datetime(d.year, d.month, d.day, calendar=d.calendar)
+    # Half a second of tolerance: a stamp decoded as 23:59:59.9999 from floating-point
+    # time values means midnight of the next day.
+    r = d + _dt.timedelta(microseconds=500_000)
+    return cftime.datetime(r.year, r.month, r.day, calendar=d.calendar)
 
 
 def _month_start(d: cftime.datetime, shift: int = 0) -> cftime.datetime:

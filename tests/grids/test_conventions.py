@@ -150,3 +150,16 @@ def test_without_dask_gives_numpy(tmp_path):
     g = open_grid(p, chunks=None)
     assert isinstance(g.data, np.ndarray)
     assert_array_equal(g.values, raw.astype(np.float64))
+
+
+def test_unsigned_bytes(tmp_path):
+    # netCDF-3 bytes flagged "_Unsigned" (NUG / CF §2.2 note): -1 means 255.
+    raw = np.array([0, 10, -56, -1] * 6, dtype="int8").reshape(2, 3, 4)
+    attrs = {"units": "degC", "_Unsigned": "true", "scale_factor": 0.2, "add_offset": -5.0}
+    p = simple_grid(tmp_path / "u8.nc", raw, lat=LAT, lon=LON, time=TIME, attrs=attrs,
+                    fill_value=np.int8(-1))
+    g = open_grid(p)
+    as_unsigned = raw.view("uint8").astype(np.float64)
+    expected = np.where(as_unsigned == 255, np.nan, as_unsigned * 0.2 - 5.0)
+    assert_allclose(g.values, expected, rtol=0.0, atol=1e-12)
+    assert "_Unsigned: stored signed integers read as uint8" in _conventions(g)

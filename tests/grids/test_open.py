@@ -255,3 +255,21 @@ def test_multi_file_and_zarr_stay_lazy(tmp_path):
     gz = open_grid(store)
     assert isinstance(gz.data, dsa.Array)
     assert_array_equal(gz.values, _data(3, 0))
+
+
+def test_projected_netcdf_with_cf_grid_mapping_parameters(tmp_path):
+    from pyproj import CRS
+
+    raw = np.zeros((1, 2, 2), dtype="float32")
+    gm = {"grid_mapping_name": "transverse_mercator", "scale_factor_at_central_meridian": 0.9996,
+          "longitude_of_central_meridian": 147.0, "latitude_of_projection_origin": 0.0,
+          "false_easting": 500000.0, "false_northing": 10000000.0,
+          "semi_major_axis": 6378137.0, "inverse_flattening": 298.257223563}
+    p = write_nc(tmp_path / "tm.nc", raw, name="tas", dims=("time", "y", "x"),
+                 coords={"time": np.array([0.0]), "y": np.array([1.0, 2.0]), "x": np.array([1.0, 2.0])},
+                 coord_attrs={"time": {"units": "days since 2000-01-01"}},
+                 attrs={"units": "degC", "grid_mapping": "crs"}, extra={"crs": ((), np.int32(0), gm)})
+    g = open_grid(p)
+    # pyproj builds the CRS from the CF grid-mapping attributes (CF §5.6, Appendix F).
+    ref = CRS.from_cf(gm)
+    assert CRS.from_wkt(g.attrs["crs_wkt"]).equals(ref)
