@@ -13,6 +13,7 @@ from functools import lru_cache
 
 from envlink.locate._periodtext import (
     MONTH_ABBR,
+    MONTH_NAMES,
     TWO_DIGIT_YEAR,
     UNIT_RANK,
     Duration,
@@ -183,9 +184,10 @@ class _Reader:
             return None  # an ISO interval of years
         y2 = y1 // 100 * 100 + int(tail) + (100 if int(tail) < y1 % 100 else 0) if len(tail) == 2 else int(tail)
         if y2 != y1 + 1:
-            raise self.fail(
-                f"a split year names two consecutive years (e.g. {y1}/{str(y1 + 1)[-2:]}); for a "
-                f"month write {y1}-{tail}, for a range of years write {y1}-{y2}", "unreadable_period")
+            hint = (f"; for {MONTH_NAMES[int(tail) - 1]} {y1} write {y1}-{tail}" if 1 <= int(tail) <= 12
+                    else f"; for the years {y1} to {y2} write {y1}-{y2}")
+            raise self.fail(f"a split year names two consecutive years (e.g. {y1}/{str(y1 + 1)[-2:]})"
+                            + hint, "unreadable_period")
         note = (f"{self.raw.strip()!r} may mean a split year (e.g. July {y1} to June {y2}) or a "
                 "season across the year end; the window covers both calendar years")
         return Period(dt.date(y1, 1, 1), dt.date(y2, 12, 31), "years", ("split_year",), (note,))

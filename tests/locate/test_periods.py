@@ -419,7 +419,7 @@ ERRORS = [
     # a split year of non-consecutive years
     ("austral summer 2011/13", "season_year_mismatch", r"two consecutive years"),
     # "2011/06" is no split year; the message points to the month form
-    ("2011/06", "unreadable_period", r"consecutive years.*2011-06"),
+    ("2011/06", "unreadable_period", r"consecutive years.*for June 2011 write 2011-06"),
     # a range of seasons
     ("spring-summer 2004", "unreadable_period", r"range of seasons is not read"),
     # an open-ended period
@@ -438,6 +438,8 @@ ERRORS = [
     ("0000-W01", "impossible_date", r"year 0 is outside the calendar"),
     # a qualifier word inside another word is no qualifier ("humid" holds "mid")
     ("humid season 2012", "season_needs_mapping", r"the 'humid' season has no fixed months"),
+    # "2011/13" is neither a split year nor a month; the message points to the year range
+    ("2011/13", "unreadable_period", r"for the years 2011 to 2013 write 2011-2013"),
     # words with no date
     ("sometime", "unreadable_period", r"no year found"),
     # a day range without a year
