@@ -317,7 +317,7 @@ def run_project(
         loc = project.section("locate")
         kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}
         gazetteer = envlink.read_gazetteer(project.gazetteer) if project.gazetteer else None
-        table = envlink.locate(table, gazetteer=gazetteer, progress=False, **kwargs)
+        table = envlink.locate(table, gazetteer=gazetteer, progress=progress, **kwargs)
         steps.done("locate")
         provenance: dict[str, Any] = {"project": {"title": project.title,
                                                   "file": project.source.name if project.source else None},
@@ -335,8 +335,8 @@ def run_project(
             if isinstance(options.get("mmm"), str):
                 m = Path(options["mmm"])
                 options["mmm"] = str(m if m.is_absolute() else project.root / m)
-            table = envlink.attach(table, grids[gname], name=cov["name"], cache_dir=cache,
-                                   **options)  # fmt: skip
+            table = envlink.attach(table, grids[gname], name=cov["name"], cache_dir=str(cache),
+                                   progress=progress, **options)  # fmt: skip
             stage_prov = dict(table.attrs.get("envlink", {}).get(cov["name"], {}) or {})
             provenance["covariates"][cov["name"]] = {"grid": gname, **options, **stage_prov}
             steps.done(f"attach {cov['name']}")
@@ -360,8 +360,9 @@ def run_project(
             provenance["model"] = dict(project.section("model"))
             n_perm = int(project.section("model").get("permutations", 0))
             if n_perm and fit is not None:
+                show = sys.stderr.isatty() if progress is None else bool(progress)
                 perm = fit.permutation_test(n_perm, project.section("model").get("seed"),
-                                            progress=bool(progress))  # fmt: skip
+                                            progress=show)  # fmt: skip
                 provenance["model"]["permutation"] = perm.to_dict()
                 permutation_p = float(perm.Q_M_p)
             steps.done("model")
