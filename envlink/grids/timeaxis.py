@@ -145,23 +145,20 @@ def decode_time(
     return np.asarray(out, dtype=object).reshape(vals.shape), notes
 
 
-def _floor_day(d: cftime.datetime) -> cftime.datetime:
-    # Half a second of tolerance: a stamp decoded as 23:59:59.9999 from floating-point
-    # time values means midnight of the next day.
-    r = d + _dt.timedelta(microseconds=500_000)
-    return cftime.datetime(r.year, r.month, r.day, calendar=d.calendar)
-
-
 def _month_start(d: cftime.datetime, shift: int = 0) -> cftime.datetime:
     y, m = divmod(d.month - 1 + shift, 12)
     return cftime.datetime(d.year + y, m + 1, 1, calendar=d.calendar)
 
 
-def _days(a: cftime.datetime, b: cftime.datetime) -> float:
-    return (b - a).total_seconds() / 86400.0
+def _as_days(stamps: np.ndarray) -> np.ndarray:
+    """Stamps as float days since the first stamp's midnight (vectorised by cftime)."""
+    arr = np.asarray(stamps, dtype=object)
+    first = arr[0]
+    units = f"days since {first.year:04d}-{first.month:02d}-{first.day:02d}"
+    return np.asarray(cftime.date2num(list(arr), units, calendar=first.calendar), dtype=np.float64)
 
 
-def step_kind(stamps: np.ndarray) -> tuple[str, float]:
+def step_kind(stamps: np.ndarray, days: np.ndarray | None = None) -> tuple[str, float]:
     """Classify the step between stamps: ``daily``, ``monthly``, ``yearly``, ``regular`` or ``single``.
 
     Stamps at one time of day and whole days apart, at least one day apart once, are
@@ -180,7 +177,7 @@ def step_kind(stamps: np.ndarray) -> tuple[str, float]:
     """
     if len(stamps) < 2:
         return "single", float("nan")
-    diffs = np.array([_days(a, b) for a, b in zip(stamps[:-1], stamps[1:], strict=True)])
+    diffs = np.diff(_as_days(stamps) if days is None else days)
     med = float(np.median(diffs))
     low = float(diffs.min())
     clock = {(d.hour, d.minute, d.second) for d in stamps}
@@ -221,15 +218,24 @@ def infer_cells(stamps: np.ndarray, *, variable: str = "time") -> tuple[np.ndarr
     >>> e[-1].isoformat()[:10], rule
     ('2000-03-01', 'time cells inferred: monthly step, each stamp taken as its calendar month')
     """
-    kind, med = step_kind(stamps)
+    days = _as_days(stamps) if len(stamps) else np.array([])
+    kind, med = step_kind(stamps, days)
     if kind in ("daily", "single"):
-        starts = np.array([_floor_day(d) for d in stamps], dtype=object)
-        ends = np.array([s + _dt.timedelta(days=1) for s in starts], dtype=object)
+        first = stamps[0]
+        units = f"days since {first.year:04d}-{first.month:02d}-{first.day:02d}"
+        # Floor to the calendar day with half a second of tolerance: a stamp decoded as
+        # 23:59:59.9999 from floating-point time values means the next midnight.
+        day = np.floor(days + 0.5 / 86400.0)
+        cal = first.calendar
+        starts = np.asarray(cftime.num2date(day, units, calendar=cal, only_use_cftime_datetimes=True), dtype=object)
+        ends = np.asarray(cftime.num2date(day + 1.0, units, calendar=cal, only_use_cftime_datetimes=True), dtype=object)
         rule = (
             "time cells inferred: daily step, each stamp taken as its calendar day"
             if kind == "daily"
             else "time cell inferred: single step without bounds taken as its calendar day"
         )
+        _check_numbers(day, day + 1.0, starts, ends, variable)
+        return starts, ends, rule
     elif kind == "monthly":
         starts = np.array([_month_start(d) for d in stamps], dtype=object)
         ends = np.array([_month_start(d, 1) for d in stamps], dtype=object)
@@ -248,20 +254,32 @@ def infer_cells(stamps: np.ndarray, *, variable: str = "time") -> tuple[np.ndarr
 
 
 def _check_cells(starts: np.ndarray, ends: np.ndarray, variable: str) -> None:
-    for i in range(len(starts)):
-        if not starts[i] < ends[i]:
-            raise GridError(
-                f"The time cell {i} of {variable!r} is empty or reversed: "
-                f"[{starts[i].isoformat()}, {ends[i].isoformat()})."
-            )
-        if i and starts[i] < ends[i - 1]:
-            raise GridError(
-                f"The time steps {i - 1} and {i} of {variable!r} overlap or are not in order "
-                f"(cells [{starts[i - 1].isoformat()}, {ends[i - 1].isoformat()}) and "
-                f"[{starts[i].isoformat()}, {ends[i].isoformat()})). Two stamps fall in one cell, or "
-                "the steps are too irregular to infer cells: give the cells explicitly (a CF bounds "
-                "variable, or band_dates=[(start, end), ...] for a GeoTIFF)."
-            )
+    if len(starts) == 0:
+        return
+    both = _as_days(np.concatenate([np.asarray(starts, dtype=object), np.asarray(ends, dtype=object)]))
+    _check_numbers(both[: len(starts)], both[len(starts):], starts, ends, variable)
+
+
+def _check_numbers(
+    s_num: np.ndarray, e_num: np.ndarray, starts: np.ndarray, ends: np.ndarray, variable: str
+) -> None:
+    bad = np.flatnonzero(~(s_num < e_num))
+    if bad.size:
+        i = int(bad[0])
+        raise GridError(
+            f"The time cell {i} of {variable!r} is empty or reversed: "
+            f"[{starts[i].isoformat()}, {ends[i].isoformat()})."
+        )
+    over = np.flatnonzero(s_num[1:] < e_num[:-1])
+    if over.size:
+        i = int(over[0]) + 1
+        raise GridError(
+            f"The time steps {i - 1} and {i} of {variable!r} overlap or are not in order "
+            f"(cells [{starts[i - 1].isoformat()}, {ends[i - 1].isoformat()}) and "
+            f"[{starts[i].isoformat()}, {ends[i].isoformat()})). Two stamps fall in one cell, or "
+            "the steps are too irregular to infer cells: give the cells explicitly (a CF bounds "
+            "variable, or band_dates=[(start, end), ...] for a GeoTIFF)."
+        )
 
 
 def cells_from_bounds(

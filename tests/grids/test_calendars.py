@@ -178,3 +178,11 @@ def test_duplicate_stamps_in_one_month_rejected(tmp_path):
     p = simple_grid(tmp_path / "dup.nc", _data(4), lat=LAT, lon=LON, time=t)
     with pytest.raises(GridError, match="overlap or are not in order"):
         open_grid(p)
+
+
+def test_daily_stamps_a_hair_before_midnight(tmp_path):
+    # Floating-point time values 1e-7 days (8.64 ms) short of whole days still mean those days.
+    t = np.arange(5, dtype="float64") - 1e-7
+    p = simple_grid(tmp_path / "hair.nc", _data(5), lat=LAT, lon=LON, time=t)
+    g = open_grid(p)
+    assert [str(v)[:10] for v in g.time_start.values] == [f"2000-01-0{d}" for d in range(1, 6)]
