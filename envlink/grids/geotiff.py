@@ -79,6 +79,8 @@ def read_geotiff(
             band_units = [u for u in (src.units or ()) if u]
             descriptions = [d for d in (src.descriptions or ()) if d]
             tags = src.tags()
+            block_h, block_w = src.block_shapes[0]
+            pixel_interleaved = str(getattr(src.interleaving, "name", "")).lower() == "pixel"
         with warnings.catch_warnings():
             # rioxarray's own use of deprecated dask/affine calls, not the user's concern
             warnings.simplefilter("ignore", FutureWarning)
@@ -133,6 +135,10 @@ def read_geotiff(
     geographic = bool(crs is not None and crs.is_geographic)
     da = da.drop_vars([c for c in da.coords if c not in ("time", "x", "y")])
     da.attrs = attrs
+    # Storage layout for `envlink grid`: band-interleaved files hold one band (time step)
+    # per block, which makes point series slow.
+    blocks = (block_h, block_w) if static else ((n_bands if pixel_interleaved else 1), block_h, block_w)
+    da.encoding["chunksizes"] = blocks
     ds = da.to_dataset(name=name)
     if geographic:
         ds = ds.rename(y="lat", x="lon")
