@@ -23,7 +23,7 @@ __all__ = ["Design", "design_from_frame", "design_from_arrays", "new_rows", "INT
 #: name of the intercept term in every output
 INTERCEPT = "intercept"
 
-_CHECK_BLOCK = 1 << 18
+_CHECK_BLOCK = 1 << 16
 
 
 @dataclass
@@ -234,23 +234,26 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
         X = X.astype(np.float64)
     names = names or [f"x{j + 1}" for j in range(X.shape[1])]
     nan_rows: list[np.ndarray] = []
-    for lo in range(0, k, _CHECK_BLOCK):
+    for lo in range(0, k, _CHECK_BLOCK):  # boolean temporaries of block size only
         sl = slice(lo, lo + _CHECK_BLOCK)
-        nan = np.isnan(y[sl]) | np.isnan(v[sl])
+        yb, vb, xb = y[sl], v[sl], X[sl]
+        nan = np.isnan(yb) | np.isnan(vb)
         if X.shape[1]:
-            nan |= np.isnan(X[sl]).any(axis=1)
+            nan |= np.isnan(xb).any(axis=1)
         if nan.any():
             nan_rows.append(np.flatnonzero(nan) + lo)
-        vb = v[sl]
-        bad = ~nan & ~(np.isfinite(vb) & (vb > 0))
-        if bad.any():
-            _check_variances(vb[~nan], np.flatnonzero(~nan) + lo, "v")
-        ok = ~nan
-        if not np.isfinite(y[sl][ok]).all():
-            _check_finite(y[sl][ok], np.flatnonzero(ok) + lo, "y")
-        if X.shape[1] and not np.isfinite(X[sl][ok]).all():
-            i = int(np.flatnonzero(ok & ~np.isfinite(X[sl]).all(axis=1))[0]) + lo
-            raise InputError(f"Moderator matrix X is infinite in row {i}.")
+        badv = ~nan & ~((vb > 0) & np.isfinite(vb))
+        if badv.any():
+            i = int(np.flatnonzero(badv)[0])
+            _check_variances(vb[i:i + 1], np.array([i + lo]), "v")
+        bady = ~nan & ~np.isfinite(yb)
+        if bady.any():
+            i = int(np.flatnonzero(bady)[0])
+            _check_finite(yb[i:i + 1], np.array([i + lo]), "y")
+        if X.shape[1]:
+            badx = ~nan & ~np.isfinite(xb).all(axis=1)
+            if badx.any():
+                raise InputError(f"Moderator matrix X is infinite in row {int(np.flatnonzero(badx)[0]) + lo}.")
     dropped = np.concatenate(nan_rows) if nan_rows else np.zeros(0, dtype=np.int64)
     labels = None
     keep = None
@@ -266,7 +269,7 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
         gr = {r: g[keep] for r, g in gr.items()}
     full = ([INTERCEPT] if intercept else []) + names
     return Design(y, v, X, intercept, full, labels, int(dropped.size), dropped.tolist(), None, gr,
-                  keep, np.arange(k))
+                  keep, None)
 
 
 def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool) -> Design:

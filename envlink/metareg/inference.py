@@ -242,7 +242,7 @@ def _full_rows(model: Any, frame: pd.DataFrame) -> pd.DataFrame:
         return frame.assign(dropped=False)
     full = pd.DataFrame(np.nan, index=np.arange(d.keep.shape[0]), columns=frame.columns)
     full.loc[np.flatnonzero(d.keep), :] = frame.to_numpy()
-    full.index = pd.Index(d.all_labels)
+    full.index = pd.Index(d.all_labels if d.all_labels is not None else np.arange(d.keep.shape[0]))
     return full.assign(dropped=~d.keep)
 
 

@@ -237,6 +237,9 @@ class MetaRegression:
         self.tau2_ = float(t)
         self.converged_, self.n_iter_ = bool(tf.converged), int(tf.n_iter)
         self.coef_ = np.asarray(g.beta, dtype=np.float64)
+        # large-sample SE of tau² from the (restricted) likelihood information
+        info = {"REML": 0.5 * g.trPP, "ML": 0.5 * g.sw2}.get(self.method_)
+        self.tau2_se_ = float(np.sqrt(1.0 / info)) if info else None
         self._vcov_model = g.Ainv
         self._yPy = g.yPy
         s2 = self.typical_variance_
@@ -264,6 +267,7 @@ class MetaRegression:
             msgs.append(f"Multilevel {method} did not converge ({mf.message}); increase max_iter "
                         "or simplify the model.")
         self.coef_ = mf.beta
+        self.tau2_se_ = None
         self._vcov_model = mf.vcov
         self._yPy = mf.yPy
         s2 = self.typical_variance_
