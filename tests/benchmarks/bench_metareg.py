@@ -91,8 +91,9 @@ def tight_reml(y: np.ndarray, v: np.ndarray, X: np.ndarray, tol: float = 1e-10,
     beta = Ai @ b1
     Q = s[2] - b1 @ beta
     t2 = max(0.0, (Q - (k - p)) / (s[0] - np.trace(Ai @ B)))
-    it = 0
+    n_iter = 0
     for it in range(1, max_iter + 1):
+        n_iter = it
         A, B, C, b1, b2, s = _pass(y, v, X, t2)
         Ai = np.linalg.inv(A)
         beta = Ai @ b1
@@ -109,7 +110,7 @@ def tight_reml(y: np.ndarray, v: np.ndarray, X: np.ndarray, tol: float = 1e-10,
     Ai = np.linalg.inv(A)
     AB = Ai @ B
     trPP = s[1] - 2 * np.trace(Ai @ C) + np.trace(AB @ AB)
-    return {"tau2": t2, "coef": Ai @ b1, "se": np.sqrt(np.diag(Ai)), "iterations": it,
+    return {"tau2": t2, "coef": Ai @ b1, "se": np.sqrt(np.diag(Ai)), "iterations": n_iter,
             "tau2_se": float(np.sqrt(2.0 / trPP))}
 
 
