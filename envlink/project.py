@@ -323,22 +323,29 @@ def run_project(
                                                   "file": project.source.name if project.source else None},
                                       "locate": dict(loc), "covariates": {}}  # fmt: skip
         grids: dict[str, Any] = {}
-        for cov in covs:
+        for i, cov in enumerate(covs):
             gname = cov["grid"]
             if gname not in grids:
                 spec = project.section("grids")[gname]
-                path = Path(os.path.expanduser(spec["path"]))
-                path = path if path.is_absolute() else project.root / path
-                grids[gname] = envlink.open_grid(path, variable=spec.get("variable"))
+                try:
+                    grids[gname] = envlink.open_grid(_resolve(project, spec["path"]),
+                                                     variable=spec.get("variable"))  # fmt: skip
+                except InputError as exc:
+                    raise InputError(f"{where(project, 'grids', gname)} [grids.{gname}]: {exc}") from exc
             options = {k: cov[k] for k in ("stat", "window", "spatial", "baseline", "mmm",
                                            "time_weights", "min_coverage") if k in cov}  # fmt: skip
-            if isinstance(options.get("mmm"), str):
-                m = Path(options["mmm"])
-                options["mmm"] = str(m if m.is_absolute() else project.root / m)
-            table = envlink.attach(table, grids[gname], name=cov["name"], cache_dir=str(cache),
-                                   progress=progress, **options)  # fmt: skip
+            recorded = dict(options)
+            try:
+                if isinstance(options.get("mmm"), str):  # a climatology grid file
+                    options["mmm"] = envlink.open_grid(_resolve(project, options["mmm"]))
+                table = envlink.attach(table, grids[gname], name=cov["name"],
+                                       cache_dir=str(cache), progress=progress, **options)
+            except InputError as exc:
+                raise InputError(
+                    f"{where(project, 'covariates', i)} (covariate {cov['name']!r}): {exc}"
+                ) from exc
             stage_prov = dict(table.attrs.get("envlink", {}).get(cov["name"], {}) or {})
-            provenance["covariates"][cov["name"]] = {"grid": gname, **options, **stage_prov}
+            provenance["covariates"][cov["name"]] = {"grid": gname, **recorded, **stage_prov}
             steps.done(f"attach {cov['name']}")
         eff = project.section("effects")
         effect, variance = eff.get("name", "effect"), eff.get("variance", "variance")
@@ -398,6 +405,11 @@ def run_project(
         steps.close()
     return RunResult(out=out_dir, table=table, fit=fit, paths=paths, fit_rows=fit_rows,
                      windows_tried=len(covs), seconds=steps.seconds)  # fmt: skip
+
+
+def _resolve(project: Project, value: str) -> Path:
+    path = Path(os.path.expanduser(value))
+    return path if path.is_absolute() else project.root / path
 
 
 def _demo_project_dir() -> tuple[Path, tempfile.TemporaryDirectory[str] | None]:

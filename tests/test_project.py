@@ -278,3 +278,28 @@ def test_every_schema_key_is_documented() -> None:
     for line in data_path("demo.toml").read_text().splitlines():
         if line and not line.startswith("#"):
             assert line in block, line  # the documented demo project is the bundled one
+
+
+def test_stage_errors_name_the_covariate_and_line(tmp_path: Path) -> None:
+    import xarray as xr
+
+    from envlink.testing import make_grid
+
+    g = make_grid(lat=[-10.25, -9.75, -9.25, -8.75, -8.25, -7.75],
+                  lon=[-118.25, -117.75, -117.25, -116.75, -116.25], start="2007-01-01",
+                  periods=72, seed=1)  # fmt: skip
+    xr.Dataset({"sst": (g.dims, g.values, {"units": "degC"})},
+               coords={"time": g.time.values, "lat": g.lat.values, "lon": g.lon.values}).to_netcdf(
+        tmp_path / "sst.nc")
+    good = BASE + ('[grids.sst]\npath = "sst.nc"\nvariable = "sst"\n'
+                   '[[covariates]]\nname = "t_mean"\ngrid = "sst"\nspatial = "nearest"\n')
+    result = run_project(_project(tmp_path, good), progress=False)
+    assert result.table["t_mean"].notna().sum() == 5
+    bad_var = good.replace('variable = "sst"', 'variable = "sea"')
+    with pytest.raises(InputError, match=rf"line {_line_of(bad_var, '[grids.sst]')} \[grids\.sst\]: "):
+        run_project(_project(tmp_path, bad_var, name="v.toml"), progress=False, force=True)
+    bad_window = good.replace('spatial = "nearest"',
+                              'spatial = "nearest"\nstat = "anomaly"\nbaseline = "1900-1910"')
+    text_line = _line_of(bad_window, "[[covariates]]")
+    with pytest.raises(InputError, match=rf"line {text_line} \(covariate 't_mean'\): "):
+        run_project(_project(tmp_path, bad_window, name="w.toml"), progress=False, force=True)
