@@ -119,7 +119,8 @@ def _finish(
 def _check_correction(caller: str, correction: float, zero_cells: str) -> None:
     if zero_cells not in _ZERO_RULES:
         raise param_error("zero_cells", caller, "one of " + ", ".join(map(repr, _ZERO_RULES)), zero_cells)
-    if not (np.isfinite(correction) and correction > 0):
+    ok = isinstance(correction, int | float | np.floating) and not isinstance(correction, bool)
+    if not (ok and np.isfinite(correction) and correction > 0):
         raise param_error("correction", caller, "a positive number", correction)
 
 

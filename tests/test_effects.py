@@ -210,6 +210,8 @@ def test_continuity_correction_rules() -> None:
         ef.logit_proportion([1], [2], zero_cells="some")
     with pytest.raises(InputError, match="'correction' parameter"):
         ef.log_odds_ratio([1], [2], [1], [2], correction=0)
+    with pytest.raises(InputError, match="'correction' parameter of logit_proportion must be a positive number"):
+        ef.logit_proportion([1], [2], correction="half")  # type: ignore[arg-type]
 
 
 @pytest.mark.parametrize(
