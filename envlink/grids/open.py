@@ -104,6 +104,9 @@ def check_classic_size(path: Path) -> None:
             magic = f.read(4)
     except OSError as exc:
         raise GridError(f"Cannot read the grid file {str(path)!r}: {exc.strerror or exc}") from None
+    if magic == b"\x89HDF":
+        _check_hdf5_size(path)
+        return
     if magic not in (b"CDF\x01", b"CDF\x02"):
         return
     from scipy.io import netcdf_file
@@ -119,6 +122,37 @@ def check_classic_size(path: Path) -> None:
             f"The netCDF file {str(path)!r} is truncated or corrupt: its header describes more "
             f"data than the file's {path.stat().st_size} bytes hold ({type(exc).__name__})."
         ) from None
+
+
+def _check_hdf5_size(path: Path) -> None:
+    """Compare an HDF5 (netCDF-4) file's size with the end-of-file address in its superblock.
+
+    Superblock layout (HDF5 File Format Specification, version 3.0, §II.A): versions 0
+    and 1 hold the end-of-file address as the third address after a fixed 24-byte (v0)
+    or 28-byte (v1) preamble; versions 2 and 3 as the third field after 12 bytes.
+    """
+    with open(path, "rb") as f:
+        head = f.read(128)
+    if len(head) < 12 or head[:8] != b"\x89HDF\r\n\x1a\n":
+        return
+    version = head[8]
+    if version in (0, 1):
+        size_offsets, start = head[13], (24 if version == 0 else 28)
+    elif version in (2, 3):
+        size_offsets, start = head[9], 12
+    else:
+        return
+    if size_offsets not in (2, 4, 8) or len(head) < start + 3 * size_offsets:
+        return
+    base = int.from_bytes(head[start : start + size_offsets], "little")
+    field = start + 2 * size_offsets  # base address, one more address, then end of file
+    eof = int.from_bytes(head[field : field + size_offsets], "little")
+    actual = path.stat().st_size
+    if base + eof > actual:
+        raise GridError(
+            f"The netCDF-4/HDF5 file {str(path)!r} is truncated: it holds {actual} bytes but its "
+            f"superblock says {base + eof}. Download or copy it again."
+        )
 
 
 def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> xr.Dataset:
