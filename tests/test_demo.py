@@ -142,3 +142,13 @@ def test_demo_grids_are_small_and_say_they_are_invented() -> None:
         with xr.open_dataset(data_path(name)) as ds:
             assert "Invented" in ds.attrs["comment"] and "generate" in ds.attrs["source"]
     assert len(read_table(data_path("vell_studies.csv"))) >= 60
+
+
+def test_generator_command_line_writes_every_file(tmp_path: Path, capsys) -> None:
+    from envlink.demo_grids.generate import main as generate_main
+
+    assert generate_main(["--out", str(tmp_path)]) == 0
+    printed = capsys.readouterr().out.split()
+    assert sorted(Path(p).name for p in printed) == sorted(DEMO_FILES)
+    truth = json.loads((tmp_path / "vell_truth.json").read_text())
+    assert truth["planted"] == PLANTED and truth["baseline"] == [1991, 2020]
