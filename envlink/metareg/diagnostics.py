@@ -84,6 +84,13 @@ def _pool(y: NDArray[np.float64], v: NDArray[np.float64], method: str) -> tuple[
                 tau2 = new
                 break
             tau2 = new
+        else:
+            warnings.warn(
+                f"REML pooling did not converge in 200 Fisher-scoring steps (tau² = {tau2:.6g}); "
+                "try tau2_method='DL'.",
+                DiagnosticWarning,
+                stacklevel=3,
+            )
     w = 1.0 / (v + tau2)
     sw = w.sum()
     return float((w @ y) / sw), float(math.sqrt(1.0 / sw)), float(tau2)
