@@ -216,3 +216,29 @@ def test_fail_safe_n_not_significant_and_bad_input() -> None:
         dg.fail_safe_n(Y, V, alpha=1.5)
     with pytest.raises(InputError, match=r"variance v\[0\] is 0.0"):
         dg.fail_safe_n([0.1], [0.0])
+
+
+def _dl_mean_statsmodels(y: np.ndarray, v: np.ndarray) -> tuple[float, float]:
+    # statsmodels' DerSimonian-Laird tau², truncated at 0 (statsmodels does not truncate)
+    t2 = max(0.0, float(combine_effects(y, v, method_re="chi2").tau2))
+    w = 1 / (v + t2)
+    return float((w * y).sum() / w.sum()), math.sqrt(1 / w.sum())
+
+
+def test_trim_and_fill_unequal_variances_against_statsmodels_pooling() -> None:
+    # Duval & Tweedie's loop written out here, with statsmodels' DL pooling and scipy ranks
+    k, k0 = len(Y), 0
+    order = np.argsort(Y)
+    for _ in range(100):
+        mu, _ = _dl_mean_statsmodels(Y[order[: k - k0]], V[order[: k - k0]])
+        dev = Y - mu
+        t_n = stats.rankdata(np.abs(dev))[dev > 0].sum()
+        new = max(0, math.floor((4 * t_n - k * (k + 1)) / (2 * k - 1) + 0.5))
+        if new == k0:
+            break
+        k0 = new
+    trimmed = order[k - k0 :]
+    est, se = _dl_mean_statsmodels(np.r_[Y, 2 * mu - Y[trimmed]], np.r_[V, V[trimmed]])
+    res = dg.trim_and_fill(Y, V, side="left")
+    assert res.k0 == k0 > 0
+    assert_allclose([res.center, res.estimate, res.se], [mu, est, se], rtol=1e-10)
