@@ -68,9 +68,9 @@ def candidate_coords(ds: xr.Dataset, variable: str) -> list[Hashable]:
     """Names of the variables that may be coordinates of ``variable``, most likely first."""
     var = ds[variable]
     names: list[Hashable] = [d for d in var.dims if d in ds.variables]
-    for c in str(var.attrs.get("coordinates", "")).split():
-        if c in ds.variables and c not in names:
-            names.append(c)
+    for text in str(var.attrs.get("coordinates", "")).split():
+        if text in ds.variables and text not in names:
+            names.append(text)
     for c in var.coords:
         if c not in names and c != variable:
             names.append(c)
@@ -129,10 +129,10 @@ def find_axis(
     """
     if explicit is not None:
         if explicit not in ds.variables:
-            names = [str(n) for n in ds.variables]
+            choices = [str(n) for n in ds.variables]
             raise InputError(
                 f"The {axis} axis {explicit!r} given with {axis}= is not in the grid."
-                f"{did_you_mean(explicit, names)} Variables: {', '.join(names)}."
+                f"{did_you_mean(explicit, choices)} Variables: {', '.join(choices)}."
             )
         return AxisMatch(axis, explicit, f"option {axis}={explicit!r}")
     cands = candidate_coords(ds, variable)
@@ -141,9 +141,9 @@ def find_axis(
             found = _matches(axis, ds[c])
             if found and found.startswith(how):
                 return AxisMatch(axis, str(c), found)
-    names = _RULES[axis]["names"]
+    names: tuple[str, ...] = _RULES[axis]["names"]  # type: ignore[assignment]  # dict of mixed rules
     for c in cands:
-        if str(c).lower() in names:  # type: ignore[operator]
+        if str(c).lower() in names:
             return AxisMatch(axis, str(c), f"name {str(c)!r}")
     return None
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import os
 import sys
+import types
 import warnings
 from collections.abc import Mapping
 from typing import Any
@@ -34,7 +35,7 @@ __all__ = [
 def user_stacklevel() -> int:
     """The ``stacklevel`` that points a warning at the first caller outside envlink."""
     package_dir = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    frame = sys._getframe(1)
+    frame: types.FrameType | None = sys._getframe(1)
     level = 1
     while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package_dir):
         frame = frame.f_back

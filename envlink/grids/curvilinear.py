@@ -22,7 +22,7 @@ __all__ = ["CurvilinearIndex", "EARTH_RADIUS_KM"]
 EARTH_RADIUS_KM = 6371.0088
 
 
-def _unit_vectors(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+def _unit_vectors(lat: Sequence[float] | np.ndarray, lon: Sequence[float] | np.ndarray) -> np.ndarray:
     phi = np.radians(np.asarray(lat, dtype=np.float64))
     lam = np.radians(np.asarray(lon, dtype=np.float64))
     return np.column_stack([np.cos(phi) * np.cos(lam), np.cos(phi) * np.sin(lam), np.sin(phi)])

@@ -113,7 +113,7 @@ def _to_cftime(values: np.ndarray, calendar: str) -> np.ndarray:
 
 
 def _decode_time_axis(ds: xr.Dataset, name: str, opts: DecodeOptions, notes: list[str]) -> tuple[
-    np.ndarray, np.ndarray, np.ndarray, str
+    np.ndarray, np.ndarray | None, np.ndarray | None, str
 ]:
     tvar = ds[name]
     if tvar.ndim != 1:
@@ -144,6 +144,8 @@ def _decode_time_axis(ds: xr.Dataset, name: str, opts: DecodeOptions, notes: lis
     else:
         stamps = _to_cftime(vals, cal)
     bname = tvar.attrs.get("bounds") or tvar.encoding.get("bounds")
+    starts: np.ndarray | None = None
+    ends: np.ndarray | None = None
     if bname and bname in ds.variables:
         bvar = ds[bname]
         if bvar.dims[0] != tvar.dims[0]:
@@ -154,8 +156,6 @@ def _decode_time_axis(ds: xr.Dataset, name: str, opts: DecodeOptions, notes: lis
         else:
             starts, ends = _to_cftime(b[:, 0], cal), _to_cftime(b[:, 1], cal)
         notes.append(f"time cells from bounds variable {bname!r}")
-    else:
-        starts = ends = None
     return stamps, starts, ends, cal
 
 
@@ -200,7 +200,9 @@ def normalise_dataset(
         axes["y"] = {"name": ydim, "found_by": "projected grid (last two dimensions)"}
         axes["x"] = {"name": xdim, "found_by": "projected grid (last two dimensions)"}
     else:
-        lat_v, lon_v = ds[latm.name], ds[lonm.name]
+        assert latm is not None and lonm is not None  # checked above
+        lat_name, lon_name = latm.name, lonm.name
+        lat_v, lon_v = ds[lat_name], ds[lon_name]
         axes["lat"] = {"name": latm.name, "found_by": latm.found_by}
         axes["lon"] = {"name": lonm.name, "found_by": lonm.found_by}
         if lat_v.ndim == 1 and lon_v.ndim == 1:
@@ -210,7 +212,7 @@ def normalise_dataset(
             ydim, xdim = (str(d) for d in lat_v.dims)
         else:
             raise GridError(
-                f"The latitude {latm.name!r} {lat_v.dims} and longitude {lonm.name!r} {lon_v.dims} of "
+                f"The latitude {lat_name!r} {lat_v.dims} and longitude {lon_name!r} {lon_v.dims} of "
                 f"{label} are neither both 1-D nor 2-D on the same dimensions."
             )
     for d in (ydim, xdim):
@@ -237,7 +239,8 @@ def normalise_dataset(
         else:
             raw = raw.isel({dim: int(value)})
         notes.append(f"selected {dim}={np.asarray(raw[dim].values).item() if dim in raw.coords else value}")
-    for d in list(raw.dims):
+    for extra_dim in list(raw.dims):
+        d = str(extra_dim)
         if d not in (tdim, ydim, xdim):
             if raw.sizes[d] == 1:
                 raw = raw.isel({d: 0}, drop=True)
@@ -257,13 +260,13 @@ def normalise_dataset(
     values = values.drop_vars(list(values.coords)).rename(rename)
 
     if layout == "regular":
-        values = values.assign_coords(lat=_coord_values(ds[latm.name]), lon=_coord_values(ds[lonm.name]))
+        values = values.assign_coords(lat=_coord_values(ds[lat_name]), lon=_coord_values(ds[lon_name]))
         values, lnotes = normalise_lonlat(values)
         notes.extend(lnotes)
         is_global = covers_circle(values["lon"].values) if values.sizes["lon"] > 1 else False
     elif layout == "curvilinear":
-        lat2 = _coord_values(ds[latm.name])
-        lon_in = _coord_values(ds[lonm.name])
+        lat2 = _coord_values(ds[lat_name])
+        lon_in = _coord_values(ds[lon_name])
         lon2 = wrap_longitude(lon_in)
         values = values.assign_coords(lat=(("y", "x"), lat2), lon=(("y", "x"), lon2))
         notes.append("curvilinear grid: 2-D lat/lon kept")
@@ -287,11 +290,12 @@ def normalise_dataset(
         if not np.array_equal(sort, np.arange(sort.size)):
             values = values.isel(time=sort)
             stamps = stamps[sort]
-            starts, ends = (None, None) if starts is None else (starts[sort], ends[sort])
+            if starts is not None and ends is not None:
+                starts, ends = starts[sort], ends[sort]
             notes.append("time sorted ascending")
         if any(a == b for a, b in zip(stamps[:-1], stamps[1:], strict=True)):
             raise GridError(f"The time axis of {label} holds duplicate stamps.")
-        if starts is None:
+        if starts is None or ends is None:
             starts, ends, rule = infer_cells(stamps, variable=axes["time"]["name"])
             notes.append(rule)
         values = values.assign_coords(
