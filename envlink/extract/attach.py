@@ -20,6 +20,7 @@ import xarray as xr
 from envlink.errors import InputError, param_error
 from envlink.extract import cache as _cache
 from envlink.extract.compute import compute_values, nearest_valid
+from envlink.extract.flags import RowFlags
 from envlink.extract.options import parse_baseline, parse_spatial, parse_stat, parse_window
 from envlink.extract.reader import read_cells
 from envlink.extract.sources import area_sources, point_sources
@@ -197,17 +198,18 @@ def attach(
     lat = pd.to_numeric(table["site_lat"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
     lon = pd.to_numeric(table["site_lon"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
     lon = np.where(np.isfinite(lon), np.mod(lon + 180.0, 360.0) - 180.0, lon)
-    status = table["locate_status"].astype("string").fillna("").to_numpy() if "locate_status" in table else np.full(n, "ok")
+    rejected = (
+        (table["locate_status"].astype("string") == "rejected").fillna(False).to_numpy(dtype=bool)
+        if "locate_status" in table
+        else np.zeros(n, dtype=bool)
+    )
     wins = row_windows(table["period_start"], table["period_end"], win, calendar)
-    flags: list[list[str]] = [[] for _ in range(n)]
-    site_ok = (status != "rejected") & np.isfinite(lat) & np.isfinite(lon)
+    flags = RowFlags(n)
+    site_ok = ~rejected & np.isfinite(lat) & np.isfinite(lon)
     period_ok = wins.ok | (st.kind == "mmm")
-    for r in np.nonzero(~site_ok)[0]:
-        flags[r].append("site_rejected")
-    for r in np.nonzero(site_ok & ~period_ok)[0]:
-        flags[r].append("no_period")
-    for r in np.nonzero(wins.clipped)[0]:
-        flags[r].append("date_clipped_to_calendar")
+    flags.add(~site_ok, "site_rejected")
+    flags.add(site_ok & ~period_ok, "no_period")
+    flags.add(wins.clipped, "date_clipped_to_calendar")
     active = site_ok & period_ok
     ws = np.where(wins.ok, wins.start, b0)
     we = np.where(wins.ok, wins.end, b1)
@@ -215,8 +217,7 @@ def attach(
         ws, we = np.full(n, b0), np.full(n, b1)
     spans = row_spans(steps, ws, we)
     off_time = active & ~spans.has
-    for r in np.nonzero(off_time)[0]:
-        flags[r].append("outside_grid_time")
+    flags.add(off_time, "outside_grid_time")
     active &= spans.has
 
     if sp_rule.kind == "polygon":
@@ -224,8 +225,7 @@ def attach(
         srcs = area_sources(geom, lat, lon, wkt.astype(str), active)
     else:
         srcs = point_sources(geom, lat, lon, active, sp_rule.kind, sp_rule.km)
-    for r in range(n):
-        flags[r].extend(srcs.row_flags[r])
+    flags.extend(srcs.row_flags)
     show = progress
     if sp_rule.kind == "nearest-valid":
         X, srcs = nearest_valid(grid, geom, steps, spans, srcs, lat, lon, active, sp_rule.km, min_cov, flags, show)
@@ -234,33 +234,27 @@ def attach(
         cells, xrow = np.unique(srcs.cells, return_inverse=True)
         with _progress(show, n, cells.size, f"attach {name}: reading cells") as bar:
             X = read_cells(grid, cells, progress=bar.update)
-    for r in np.nonzero(active & (srcs.row_src < 0))[0]:
-        if "outside_grid" not in flags[r] and not any(f.startswith("no_valid_cell") for f in flags[r]):
-            flags[r].append("outside_grid")
+    said = flags.has("outside_grid") | flags.has("no_valid_cell", prefix=True)
+    flags.add(active & (srcs.row_src < 0) & ~said, "outside_grid")
     value, cov, extra = compute_values(
         X, xrow.ravel(), srcs, steps, spans, st, time_weights, in_base, mmm, geom, sp_rule.kind
     )
     cov = np.where(active & (srcs.row_src >= 0), cov, 0.0)
-    for r, f in extra:
-        flags[r].append(f)
+    flags.extend(extra)
     got = active & (srcs.row_src >= 0)
     low = got & (cov < min_cov) & (cov > 0)
-    for r in np.nonzero(got & (cov == 0))[0]:
-        flags[r].append("no_data_in_window")
-    for r in np.nonzero(got & (cov > 0) & (cov < 1.0 - 1e-9))[0]:
-        flags[r].append("partial_coverage")
-    for r in np.nonzero(low)[0]:
-        flags[r].append("below_min_coverage")
+    flags.add(got & (cov == 0), "no_data_in_window")
+    flags.add(got & (cov > 0) & (cov < 1.0 - 1e-9), "partial_coverage")
+    flags.add(low, "below_min_coverage")
     value = np.where(got & ~low & (cov > 0), value, np.nan)
     if st.kind == "dhw-max" and spans.has.any():
         short = active & (ws - steps.t0[0] < 83)
-        for r in np.nonzero(short)[0]:
-            flags[r].append("dhw_short_history")
+        flags.add(short, "dhw_short_history")
     cla, clo = geom.cell_latlon(np.where(got, srcs.row_cell, -1))
     arrays = {
         "value": value.astype(np.float64), "cell_lat": cla, "cell_lon": clo,
         "distance_km": np.where(got, srcs.row_dist, np.nan), "coverage": np.where(active, cov, np.nan),
-        "flags": np.array([";".join(dict.fromkeys(f)) for f in flags], dtype=str),
+        "flags": flags.render().astype(str),
     }
     if key is not None:
         _cache.save(cache_dir, key, arrays)
@@ -279,7 +273,7 @@ def _identity(grid: xr.DataArray) -> object:
 def _assemble(table: pd.DataFrame, name: str, a: dict[str, np.ndarray], prov: dict[str, object]) -> pd.DataFrame:
     out = table.copy()
     out[name] = np.asarray(a["value"], dtype=np.float64)
-    out[name + "_flags"] = pd.array([str(x) for x in a["flags"]], dtype="string")
+    out[name + "_flags"] = pd.array(np.asarray(a["flags"], dtype=object), dtype="string")
     out[name + "_cell_lat"] = np.asarray(a["cell_lat"], dtype=np.float64)
     out[name + "_cell_lon"] = np.asarray(a["cell_lon"], dtype=np.float64)
     out[name + "_distance_km"] = np.asarray(a["distance_km"], dtype=np.float64)

@@ -16,6 +16,7 @@ import numpy as np
 import xarray as xr
 
 from envlink.errors import InputError
+from envlink.extract.flags import RowFlags
 from envlink.extract.options import StatSpec
 from envlink.extract.reader import read_cells
 from envlink.extract.sources import Sources
@@ -29,10 +30,12 @@ from envlink.extract.stats import (
     monthly_climatology,
     window_stat,
 )
+from envlink.geo import EARTH_RADIUS_KM
 
 __all__ = ["compute_values", "nearest_valid", "coverage"]
 
 _BLOCK_ELEMENTS = 4_000_000
+_KM_PER_DEG = np.pi * EARTH_RADIUS_KM / 180.0
 
 
 def _sub(sp: Spans, r: np.ndarray) -> Spans:
@@ -100,11 +103,11 @@ def compute_values(
     mmm: float | xr.DataArray | None,
     geom: GridGeometry,
     rule: str,
-) -> tuple[np.ndarray, np.ndarray, list[tuple[int, str]]]:
+) -> tuple[np.ndarray, np.ndarray, RowFlags]:
     """Value and coverage of every row (NaN / 0 where it has no source) and extra flags."""
     n = srcs.row_src.size
     value, cov = np.full(n, np.nan), np.zeros(n)
-    extra: list[tuple[int, str]] = []
+    extra = RowFlags(n)
     nsrc = srcs.ptr.size - 1
     if st.kind == "anomaly":
         keys = steps.month - 1 if steps.monthly else (steps.month - 1) * 31 + steps.day - 1
@@ -142,8 +145,19 @@ def compute_values(
             for k in range(4):
                 ck = coverage(X, steps, xrow[base + k], sp)
                 miss = (srcs.weights[base + k] > 0) & (ck < c - 1e-9)
-                extra.extend((int(r), "bilinear_missing_neighbour") for r in rows[miss])
+                extra.add(rows[miss], "bilinear_missing_neighbour")
     return value, cov, extra
+
+
+def _halo(geom: GridGeometry, lat: np.ndarray, km: float) -> tuple[int, int] | None:
+    """Cells (rows, columns) within which a ``nearest-valid`` candidate can lie."""
+    if geom.kind != "regular" or lat.size == 0:
+        return None
+    dlat = float(np.min(np.diff(geom.lat_edges))) * _KM_PER_DEG
+    dlon = float(np.min(np.diff(geom.lon_edges))) * _KM_PER_DEG
+    reach = km + np.hypot(dlat, dlon)
+    coslat = max(np.cos(np.radians(min(float(np.nanmax(np.abs(lat))) + reach / _KM_PER_DEG, 89.0))), 1e-3)
+    return int(np.ceil(reach / dlat)), int(min(np.ceil(reach / (dlon * coslat)), geom.shape[1]))
 
 
 def nearest_valid(
@@ -157,7 +171,7 @@ def nearest_valid(
     active: np.ndarray,
     km: float,
     min_cov: float,
-    flags: list[list[str]],
+    flags: RowFlags,
     show: bool | None,
 ) -> tuple[np.ndarray, Sources]:
     """Read cells and choose, per row, the nearest cell with data in its window.
@@ -170,8 +184,10 @@ def nearest_valid(
 
     thr = max(min_cov, 1e-9)
     any_valid = np.full(geom.shape, -1, dtype=np.int8)
+    halo = _halo(geom, lat[active], km)
     with _progress(show, lat.size, srcs.cells.size, "attach: reading cells") as bar:
-        X = read_cells(grid, srcs.cells, progress=bar.update, any_valid=any_valid)
+        got = read_cells(grid, srcs.cells, progress=bar.update, any_valid=any_valid, halo=halo)
+    X, spare_cells, spare_X = got if halo is not None else (got, np.array([], dtype=np.int64), None)
     cells = srcs.cells.copy()
     row_x = srcs.row_src.copy()
     cov0 = coverage(X, steps, row_x, spans)
@@ -186,11 +202,19 @@ def nearest_valid(
         flat_valid = any_valid.ravel()
         keep = flat_valid[cand] != 0
         new = np.setdiff1d(cand[keep], cells)
-        if new.size:
-            with _progress(show, lat.size, new.size, "attach: reading candidate cells") as bar:
-                X1 = read_cells(grid, new, progress=bar.update)
+        # candidates already gathered with the first read (near cells lacking data)
+        have = np.isin(new, spare_cells)
+        if have.any():
+            o = np.argsort(spare_cells)
+            X = np.concatenate([X, spare_X[o[np.searchsorted(spare_cells[o], new[have])]]], axis=0)
+            cells = np.concatenate([cells, new[have]])
+        rest = new[~have]
+        if rest.size:
+            with _progress(show, lat.size, rest.size, "attach: reading candidate cells") as bar:
+                X1 = read_cells(grid, rest, progress=bar.update)
             X = np.concatenate([X, X1], axis=0)
-            cells = np.concatenate([cells, new])
+            cells = np.concatenate([cells, rest])
+        del spare_X
         order = np.argsort(cells, kind="stable")
         # candidate pairs (row, cell) in order of distance, skipping known-empty cells
         counts = np.diff(ptr)
@@ -203,20 +227,19 @@ def nearest_valid(
         px = order[np.searchsorted(cells[order], cand[pos])]
         pcov = coverage(X, steps, px, _sub(spans, pr))
         good = pcov >= thr
-        chosen = {}
-        for r, x, p in zip(pr[good], px[good], pos[good], strict=True):
-            if r not in chosen:
-                chosen[r] = (x, p)
-        for r in fr:
-            if r in chosen:
-                x, p = chosen[r]
-                row_x[r], row_cell[r], row_dist[r] = x, cells[x], dist[p]
-                if srcs.row_cell[r] != cells[x]:
-                    flags[r].append(f"nearest_valid_{int(round(float(dist[p])))}km")
-            else:
-                row_x[r] = -1
-                if srcs.row_cell[r] < 0:
-                    flags[r].append("outside_grid")
-                flags[r].append(f"no_valid_cell_within_{km:g}km")
-    out = Sources(np.arange(cells.size + 1), cells, np.ones(cells.size), row_x, row_cell, row_dist, [])
+        # pairs are in row order, each row's candidates by distance: first good one wins
+        gr, first = np.unique(pr[good], return_index=True)
+        gx, gp = px[good][first], pos[good][first]
+        ok_rows = np.isin(fr, gr)
+        row_x[gr], row_cell[gr], row_dist[gr] = gx, cells[gx], dist[gp]
+        missing = fr[~ok_rows]
+        row_x[missing] = -1
+        moved_mask = srcs.row_cell[gr] != cells[gx]
+        moved = gr[moved_mask]
+        moved_code = [f"nearest_valid_{int(round(float(d)))}km" for d in dist[gp][moved_mask]]
+        missing_a = np.asarray(missing, dtype=np.int64)
+        flags.add(missing_a[srcs.row_cell[missing_a] < 0], "outside_grid")
+        flags.add(missing_a, f"no_valid_cell_within_{km:g}km")
+        flags.add(np.asarray(moved, dtype=np.int64), np.asarray(moved_code, dtype=object))
+    out = Sources(np.arange(cells.size + 1), cells, np.ones(cells.size), row_x, row_cell, row_dist, RowFlags(lat.size))
     return X, out

@@ -2,13 +2,16 @@
 
 Cells are read by rectangular tiles aligned to the storage chunks (dask chunks, or
 the netCDF/HDF5 ``chunksizes`` encoding), and only tiles that hold a needed cell are
-read; every tile is read once, with all time steps, then the needed cells are
-gathered from it with NumPy. This avoids per-site ``.sel`` loops and the
+read; every tile is read once, with all time steps (in time slabs of about 64 MiB),
+then the needed cells are gathered from it with NumPy. Large lazy grids (more than
+128 MiB to read) are read by several processes, one tile each (as many as cores, or
+``$ENVLINK_READ_WORKERS``); each returns only the gathered cells. This avoids per-site ``.sel`` loops and the
 outer-product indexing that pointwise selection on a lazy array turns into.
 """
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 
 import numpy as np
@@ -17,6 +20,7 @@ import xarray as xr
 __all__ = ["read_cells", "storage_chunks"]
 
 _TILE_BYTES = 64 * 2**20
+_PARALLEL_BYTES = 128 * 2**20
 
 
 def storage_chunks(grid: xr.DataArray) -> tuple[int, int]:
@@ -45,13 +49,74 @@ def _tiles(ny: int, nx: int, nt: int, itemsize: int, chunks: tuple[int, int]) ->
     return min(ty, ny), min(tx, nx)
 
 
+def _workers(grid: xr.DataArray, volume: int, n_jobs: int) -> int:
+    """Processes for reading: several for large file-backed (lazy) grids, else one."""
+    if n_jobs < 2 or volume < _PARALLEL_BYTES:
+        return 1
+    if grid.chunks is None and bool(getattr(grid.variable, "_in_memory", True)):
+        return 1
+    env = os.environ.get("ENVLINK_READ_WORKERS")
+    n = int(env) if env and env.isdigit() else (os.cpu_count() or 1)
+    return max(1, min(n, n_jobs, 16))
+
+
+def _read_rect(
+    rect: xr.DataArray, ly: np.ndarray, lx: np.ndarray, dtype: type, ct: int, halo: tuple[int, int] | None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Gather cells (ly, lx) of a rectangle over all time steps, in time slabs.
+
+    With ``halo = (ky, kx)`` (and the rectangle read in one slab), also gathers every
+    other cell with some data that lies within (ky, kx) cells of a cell lacking data
+    at some step: the cells a ``nearest-valid`` search may need.
+    """
+    import contextlib
+
+    nt = rect.shape[0]
+    step_bytes = rect.shape[1] * rect.shape[2] * np.dtype(dtype).itemsize
+    # time slabs (aligned to the time chunks) keep memory bounded on time-chunked files
+    slab = max(ct, (_TILE_BYTES // max(step_bytes, 1)) // ct * ct)
+    out = np.empty((ly.size, nt), dtype=dtype)
+    seen = np.zeros(rect.shape[1:], dtype=bool)
+    ctx = contextlib.nullcontext()
+    if rect.chunks is not None and multiprocessing_child():
+        import dask
+
+        ctx = dask.config.set(scheduler="synchronous")
+    ey = ex = np.array([], dtype=np.int64)
+    extra = np.empty((0, nt), dtype=dtype)
+    with ctx:
+        for t0 in range(0, nt, slab):
+            block = np.asarray(rect.isel(time=slice(t0, t0 + slab)).values, dtype=dtype)
+            out[:, t0 : t0 + block.shape[0]] = block[:, ly, lx].T
+            finite = np.isfinite(block)
+            seen |= finite.any(axis=0)
+        if halo is not None and slab >= nt:
+            from scipy.ndimage import maximum_filter
+
+            gaps = ~finite.all(axis=0)
+            near_gap = maximum_filter(gaps, size=(2 * halo[0] + 1, 2 * halo[1] + 1), mode="constant", cval=False)
+            want = near_gap & seen
+            want[ly, lx] = False
+            ey, ex = np.nonzero(want)
+            extra = np.ascontiguousarray(block[:, ey, ex].T)
+    return out, seen, np.stack([ey, ex]) if ey.size else np.zeros((2, 0), dtype=np.int64), extra
+
+
+def multiprocessing_child() -> bool:
+    """True in a worker process of a pool."""
+    import multiprocessing
+
+    return multiprocessing.parent_process() is not None
+
+
 def read_cells(
     grid: xr.DataArray,
     flat: np.ndarray,
     *,
     progress: Callable[[int], object] | None = None,
     any_valid: np.ndarray | None = None,
-) -> np.ndarray:
+    halo: tuple[int, int] | None = None,
+) -> np.ndarray | tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Series of the given flat cells, shape ``(len(flat), time)``, float32 or float64.
 
     Parameters
@@ -66,6 +131,10 @@ def read_cells(
         Shape ``(ny, nx)``, -1 where unknown; when given, set to 1 / 0 ("has data at
         some step" / "never has data") for every cell of every rectangle read (used
         to skip empty candidates of ``nearest-valid``).
+    halo : (int, int), optional
+        Also return, as ``(series, extra_cells, extra_series)``, the cells with data
+        within this many rows / columns of a cell lacking data at some step, from
+        the rectangles already in memory (``nearest-valid`` candidates).
 
     Examples
     --------
@@ -88,23 +157,49 @@ def read_cells(
     bounds = np.append(starts, order.size)
     ydim, xdim = grid.dims[1], grid.dims[2]
     ct = _time_chunk(grid)
+    jobs = []
     for k in range(tiles.size):
         sel = order[bounds[k] : bounds[k + 1]]
         # read only the rectangle of the tile spanned by needed cells
         rmin, rmax = int(iy[sel].min()), int(iy[sel].max()) + 1
         cmin, cmax = int(ix[sel].min()), int(ix[sel].max()) + 1
         rect = grid.isel({ydim: slice(rmin, rmax), xdim: slice(cmin, cmax)})
-        step_bytes = (rmax - rmin) * (cmax - cmin) * np.dtype(dtype).itemsize
-        # time slabs (aligned to the time chunks) keep memory bounded on time-chunked files
-        slab = max(ct, (_TILE_BYTES // max(step_bytes, 1)) // ct * ct)
-        seen = np.zeros((rmax - rmin, cmax - cmin), dtype=bool)
-        for t0 in range(0, nt, slab):
-            block = np.asarray(rect.isel(time=slice(t0, t0 + slab)).values, dtype=dtype)
-            out[sel, t0 : t0 + block.shape[0]] = block[:, iy[sel] - rmin, ix[sel] - cmin].T
-            if any_valid is not None:
-                seen |= np.isfinite(block).any(axis=0)
+        jobs.append((sel, rmin, rmax, cmin, cmax, (rect, iy[sel] - rmin, ix[sel] - cmin, dtype, ct, halo)))
+    volume = sum((j[2] - j[1]) * (j[4] - j[3]) for j in jobs) * nt * np.dtype(dtype).itemsize
+    workers = _workers(grid, volume, len(jobs))
+
+    extra_cells: list[np.ndarray] = []
+    extra_series: list[np.ndarray] = []
+
+    def store(job: tuple, result: tuple[np.ndarray, ...]) -> None:
+        sel, rmin, rmax, cmin, cmax, _ = job
+        out[sel] = result[0]
         if any_valid is not None:
-            any_valid[rmin:rmax, cmin:cmax] = seen
+            any_valid[rmin:rmax, cmin:cmax] = result[1]
+        if result[2].shape[1]:
+            extra_cells.append((result[2][0] + rmin) * nx + result[2][1] + cmin)
+            extra_series.append(result[3])
         if progress is not None:
             progress(sel.size)
+
+    def done() -> np.ndarray | tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if halo is None:
+            return out
+        if not extra_cells:
+            return out, np.array([], dtype=np.int64), np.empty((0, nt), dtype=dtype)
+        return out, np.concatenate(extra_cells), np.concatenate(extra_series)
+
+    if workers <= 1:
+        for job in jobs:
+            store(job, _read_rect(*job[5]))
+        return done()
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    ctx = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        futures = {pool.submit(_read_rect, *job[5]): job for job in jobs}
+        for fut in as_completed(futures):
+            store(futures[fut], fut.result())
+    return done()
     return out

@@ -10,10 +10,11 @@ by spherical cell area (or the area inside the polygon).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
+from envlink.extract.flags import RowFlags
 from envlink.extract.spatial import GridGeometry, bilinear_cells, polygon_cells
 from envlink.geo import great_circle_km
 
@@ -36,7 +37,7 @@ class Sources:
     row_src: np.ndarray
     row_cell: np.ndarray
     row_dist: np.ndarray
-    row_flags: list[list[str]] = field(default_factory=list)
+    row_flags: RowFlags
 
     @property
     def single(self) -> bool:
@@ -61,7 +62,7 @@ def point_sources(
     ``nearest-valid`` starts from ``nearest`` (see :mod:`envlink.extract.attach`).
     """
     n = lat.size
-    flags: list[list[str]] = [[] for _ in range(n)]
+    flags = RowFlags(n)
     uniq, site = _unique_sites(lat, lon, active)
     ulat, ulon = uniq[:, 0], uniq[:, 1]
     real = np.isfinite(ulat)
@@ -109,8 +110,7 @@ def point_sources(
     row_cell = np.where(site >= 0, first[np.maximum(site, 0)], -1)
     la, lo = geom.cell_latlon(row_cell)
     row_dist = great_circle_km(lat, lon, la, lo)
-    for r in np.nonzero((site >= 0) & small[np.maximum(site, 0)])[0]:
-        flags[r].append("buffer_smaller_than_cell")
+    flags.add((site >= 0) & small[np.maximum(site, 0)], "buffer_smaller_than_cell")
     return Sources(np.asarray(ptr), _cat(cells, np.int64), _cat(weights, np.float64), row_src, row_cell, row_dist, flags)
 
 
@@ -118,35 +118,30 @@ def area_sources(
     geom: GridGeometry, lat: np.ndarray, lon: np.ndarray, wkt: np.ndarray, active: np.ndarray
 ) -> Sources:
     """Sources of the ``polygon`` rule; rows without a polygon use their nearest cell."""
-    n = lat.size
     has_poly = active & (wkt != "")
     base = point_sources(geom, lat, lon, active & ~has_poly, "nearest", None)
     ptr, cells, weights = [int(x) for x in base.ptr], [base.cells], [base.weights]
     row_src, row_cell, row_dist = base.row_src.copy(), base.row_cell.copy(), base.row_dist.copy()
     flags = base.row_flags
-    for r in np.nonzero(active & ~has_poly)[0]:
-        flags[r].append("point_site_nearest_cell")
+    flags.add(active & ~has_poly, "point_site_nearest_cell")
     polys, inv = np.unique(wkt[has_poly], return_inverse=True)
     rows = np.nonzero(has_poly)[0]
     for k, text in enumerate(polys):
         c, a, small = polygon_cells(geom, str(text))
         these = rows[inv.ravel() == k]
         if c.size == 0:
-            for r in these:
-                flags[r].append("outside_grid")
+            flags.add(these, "outside_grid")
             continue
         src = len(ptr) - 1
         cells.append(c)
         weights.append(a)
         ptr.append(ptr[-1] + c.size)
         main = c[np.argmax(a)]
-        for r in these:
-            row_src[r], row_cell[r] = src, main
-            if small:
-                flags[r].append("polygon_smaller_than_cell")
+        row_src[these], row_cell[these] = src, main
+        if small:
+            flags.add(these, "polygon_smaller_than_cell")
     la, lo = geom.cell_latlon(row_cell)
     row_dist = np.where(row_cell >= 0, great_circle_km(lat, lon, la, lo), np.nan)
-    del n
     return Sources(
         np.asarray(ptr), np.concatenate(cells).astype(np.int64), np.concatenate(weights), row_src, row_cell, row_dist, flags
     )

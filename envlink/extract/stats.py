@@ -191,14 +191,15 @@ def window_stat(
     v0 = np.where(valid, S, 0.0)
     vf = valid.astype(np.float64)
     length = steps.length[None, :]
-    cov = _wsum(vf, length, src, sp, sp.ov0, sp.ov1) / np.where(sp.days > 0, sp.days, np.nan)
+    days_with_data = _wsum(vf, length, src, sp, sp.ov0, sp.ov1)
+    cov = days_with_data / np.where(sp.days > 0, sp.days, np.nan)
     if weights == "duration":
         b, e0, e1 = length, sp.ov0, sp.ov1
     else:
         b, e0, e1 = np.ones_like(length), np.ones_like(sp.ov0), np.ones_like(sp.ov1)
     with np.errstate(invalid="ignore", divide="ignore"):
         if kind in ("mean", "std", "above"):
-            W = _wsum(vf, b, src, sp, e0, e1)
+            W = days_with_data if weights == "duration" else _wsum(vf, b, src, sp, e0, e1)
             W = np.where(W > 0, W, np.nan)
             if kind == "mean":
                 val = _wsum(v0, b, src, sp, e0, e1) / W

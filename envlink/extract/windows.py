@@ -50,12 +50,12 @@ def parse_iso_dates(values: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarr
     (np.int64(2004), np.int64(2), np.int64(15), [True, False, False])
     """
     text = pd.Series(values).astype("string").str.strip().str.slice(0, 10)
-    parts = text.str.extract(r"^(-?\d{4})-(\d{2})-(\d{2})$")
-    ok = parts.notna().all(axis=1).to_numpy().copy()
-    num = parts.fillna("1").astype(np.int64).to_numpy()
-    y, m, d = num[:, 0], num[:, 1], num[:, 2]
-    ok &= (m >= 1) & (m <= 12) & (d >= 1) & (d <= 31)
-    y, m, d = np.where(ok, y, 2000), np.where(ok, m, 1), np.where(ok, d, 1)
+    good = text.str.fullmatch(r"-?\d{4}-\d{2}-\d{2}").fillna(False).to_numpy(dtype=bool)
+    dt = pd.to_datetime(text.where(good), format="%Y-%m-%d", errors="coerce")
+    ok = good & dt.notna().to_numpy()
+    y = np.where(ok, dt.dt.year.fillna(2000).to_numpy(dtype=np.int64), 2000)
+    m = np.where(ok, dt.dt.month.fillna(1).to_numpy(dtype=np.int64), 1)
+    d = np.where(ok, dt.dt.day.fillna(1).to_numpy(dtype=np.int64), 1)
     return y, m, d, ok
 
 

@@ -1,0 +1,280 @@
+"""Benchmark of envlink.attach against bare NumPy, a per-site .sel loop and a streaming limit.
+
+Run from the repository root::
+
+    python tests/benchmarks/bench_attach.py --quick     # tiny grid, seconds
+    python tests/benchmarks/bench_attach.py --full      # 720 x 1440 x 360 float32, ~1.5 GB per layout
+
+The grid is a 30-year monthly 0.25° global field (synthetic SST with a seasonal cycle,
+a trend and invented continents masked as NaN), written to a temporary folder in two
+layouts: chunked (12, 90, 180) with zlib level 1, and contiguous uncompressed. The
+table holds ocean-ish sites (|lat| <= 35°, about 5 % of them on land cells next to
+the coast) with windows of 1-36 whole months. Timed, per layout:
+
+(a) envlink: ``open_grid`` + ``attach(spatial="nearest-valid:25km", stat="mean")`` with
+    all its QA flags and provenance, in a fresh subprocess (peak RSS from getrusage);
+(b) bare NumPy as a skilled user writes it: read the needed latitude band into
+    memory, fancy-index the nearest cells (float64), window means from cumulative
+    sums; no QA;
+(c) the per-site ``.sel(...).sel(time=slice(...)).mean()`` loop on the first rows,
+    scaled per row;
+(d) a streaming limit: the file in one-year time slabs (band rows only), needed cells
+    gathered with NumPy, in as many processes as cores, then window means.
+
+Medians of the repeats with min-max are printed as JSON and a Markdown table.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+CHUNKS = (12, 90, 180)
+
+
+# -- data ----------------------------------------------------------------------------
+def land_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+    """Invented continents: low-frequency blobs covering about a third of the globe."""
+    la, lo = np.meshgrid(np.radians(lat), np.radians(lon), indexing="ij")
+    f = np.sin(2.0 * lo + 0.5) * np.cos(3.0 * la) + 0.6 * np.sin(5.0 * lo) * np.sin(4.0 * la + 1.0)
+    return f > 0.45
+
+
+def write_grids(folder: Path, ny: int, nx: int, nt: int) -> dict[str, Path]:
+    """Write the synthetic grid in both layouts; returns layout -> path."""
+    import netCDF4
+
+    lat = -90.0 + (np.arange(ny) + 0.5) * (180.0 / ny)
+    lon = -180.0 + (np.arange(nx) + 0.5) * (360.0 / nx)
+    land = land_mask(lat, lon)
+    base = (28.0 - 20.0 * np.sin(np.radians(lat)) ** 2)[:, None] + 0.5 * np.cos(np.radians(lon))[None, :]
+    paths = {"compressed": folder / "sst_zlib1.nc", "contiguous": folder / "sst_contiguous.nc"}
+    for layout, path in paths.items():
+        with netCDF4.Dataset(path, "w") as ds:
+            ds.createDimension("time", nt)
+            ds.createDimension("lat", ny)
+            ds.createDimension("lon", nx)
+            t = ds.createVariable("time", "f8", ("time",))
+            t.units, t.calendar = "days since 1990-01-01", "standard"
+            months = pd.date_range("1990-01-01", periods=nt + 1, freq="MS")
+            t[:] = (months[:-1] - months[0]).days.to_numpy()
+            ds.createVariable("lat", "f8", ("lat",))[:] = lat
+            ds["lat"].units = "degrees_north"
+            ds.createVariable("lon", "f8", ("lon",))[:] = lon
+            ds["lon"].units = "degrees_east"
+            kw = ({"zlib": True, "complevel": 1, "chunksizes": tuple(min(c, s) for c, s in zip(CHUNKS, (nt, ny, nx), strict=True))}
+                  if layout == "compressed" else {"contiguous": True})
+            v = ds.createVariable("sst", "f4", ("time", "lat", "lon"), fill_value=np.float32(-999.0), **kw)
+            v.units = "degC"
+            for y0 in range(0, nt, 12):
+                k = np.arange(y0, min(y0 + 12, nt))
+                season = 2.0 * np.sin(2 * np.pi * (k % 12) / 12.0)[:, None, None] * np.sign(lat)[None, :, None]
+                slab = (base[None] + season + 0.002 * k[:, None, None]).astype(np.float32)
+                slab[:, land] = np.nan
+                v[k[0] : k[-1] + 1] = np.ma.masked_invalid(slab)
+    return paths
+
+
+def make_rows(n: int, ny: int, nx: int, nt: int, seed: int = 1) -> pd.DataFrame:
+    """Ocean-ish sites (|lat| <= 35) with 1-36 month windows; ~5 % on coastal land cells."""
+    rng = np.random.default_rng(seed)
+    lat_c = -90.0 + (np.arange(ny) + 0.5) * (180.0 / ny)
+    lon_c = -180.0 + (np.arange(nx) + 0.5) * (360.0 / nx)
+    land = land_mask(lat_c, lon_c)
+    coast = land & ~(np.roll(land, 1, 0) & np.roll(land, -1, 0) & np.roll(land, 1, 1) & np.roll(land, -1, 1))
+    lat, lon = [], []
+    while len(lat) < n:
+        a, b = rng.uniform(-35, 35, 4 * n), rng.uniform(-180, 180, 4 * n)
+        iy = np.clip(((a + 90) / (180.0 / ny)).astype(int), 0, ny - 1)
+        ix = np.clip(((b + 180) / (360.0 / nx)).astype(int), 0, nx - 1)
+        ok = ~land[iy, ix] | coast[iy, ix]
+        lat.extend(a[ok].tolist())
+        lon.extend(b[ok].tolist())
+    length = rng.integers(1, min(36, nt) + 1, n)
+    start = rng.integers(0, nt - length + 1)
+    months = pd.date_range("1990-01-01", periods=nt + 1, freq="MS")
+    return pd.DataFrame({
+        "site_lat": np.asarray(lat[:n]), "site_lon": np.asarray(lon[:n]),
+        "period_start": months[start].strftime("%Y-%m-%d"),
+        "period_end": (months[start + length] - pd.Timedelta(days=1)).strftime("%Y-%m-%d"),
+        "locate_status": "ok",
+        "_m0": start, "_m1": start + length,
+    })
+
+
+# -- (a) envlink in a subprocess -----------------------------------------------------
+def run_envlink(path: str, rows: str) -> dict[str, float]:
+    """Time open_grid + attach; called in a fresh interpreter."""
+    import envlink  # noqa: F401 - imports before the clock starts
+    from envlink.extract.attach import attach
+    from envlink.grids.open import open_grid
+
+    table = pd.read_parquet(rows).drop(columns=["_m0", "_m1"])
+    t0 = time.perf_counter()
+    grid = open_grid(path, "sst", chunks=None)
+    out = attach(table, grid, name="sst", spatial="nearest-valid:25km", stat="mean", progress=False)
+    wall = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # KiB -> MiB (Linux)
+    flags = out["sst_flags"].str.len().gt(0).sum()
+    return {"seconds": wall, "peak_mib": peak, "values": int(out["sst"].notna().sum()), "flagged": int(flags)}
+
+
+def time_a(path: Path, rows: Path) -> dict[str, float]:
+    cmd = [sys.executable, __file__, "--run-envlink", str(path), str(rows)]
+    res = subprocess.run(cmd, capture_output=True, text=True, check=True)
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+# -- (b) bare NumPy ------------------------------------------------------------------
+def _cells(ds, table: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    lat = np.asarray(ds["lat"][:], dtype=np.float64)
+    lon = np.asarray(ds["lon"][:], dtype=np.float64)
+    dy, dx = lat[1] - lat[0], lon[1] - lon[0]
+    iy = np.clip(np.floor((table.site_lat.to_numpy() - (lat[0] - dy / 2)) / dy).astype(int), 0, lat.size - 1)
+    ix = np.clip(np.floor((table.site_lon.to_numpy() - (lon[0] - dx / 2)) / dx).astype(int), 0, lon.size - 1)
+    return iy, ix
+
+
+def _window_means(series: np.ndarray, m0: np.ndarray, m1: np.ndarray) -> np.ndarray:
+    cum = np.zeros((series.shape[0] + 1, series.shape[1]))
+    np.cumsum(series, axis=0, out=cum[1:])
+    col = np.arange(series.shape[1])
+    return (cum[m1, col] - cum[m0, col]) / (m1 - m0)
+
+
+def time_b(path: Path, table: pd.DataFrame) -> float:
+    import netCDF4
+
+    t0 = time.perf_counter()
+    with netCDF4.Dataset(path) as ds:
+        iy, ix = _cells(ds, table)
+        j0, j1 = int(iy.min()), int(iy.max()) + 1
+        v = ds["sst"]
+        v.set_auto_mask(False)
+        band = v[:, j0:j1, :]
+    band = np.where(band == np.float32(-999.0), np.float32(np.nan), band)
+    series = band[:, iy - j0, ix].astype(np.float64)
+    _window_means(series, table._m0.to_numpy(), table._m1.to_numpy())
+    return time.perf_counter() - t0
+
+
+# -- (c) per-site .sel loop ----------------------------------------------------------
+def time_c(path: Path, table: pd.DataFrame, n: int) -> float:
+    import xarray as xr
+
+    sub = table.iloc[:n]
+    t0 = time.perf_counter()
+    da = xr.open_dataarray(path)
+    for r in sub.itertuples():
+        da.sel(lat=r.site_lat, lon=r.site_lon, method="nearest").sel(
+            time=slice(r.period_start, r.period_end)
+        ).mean().item()
+    da.close()
+    return (time.perf_counter() - t0) / n
+
+
+# -- (d) streaming limit -------------------------------------------------------------
+def _slab(args: tuple[str, int, int, int, int, np.ndarray, np.ndarray]) -> tuple[int, np.ndarray]:
+    import netCDF4
+
+    path, t0, t1, j0, j1, iy, ix = args
+    with netCDF4.Dataset(path) as ds:
+        v = ds["sst"]
+        v.set_auto_mask(False)
+        slab = v[t0:t1, j0:j1, :]
+    return t0, slab[:, iy - j0, ix]
+
+
+def time_d(path: Path, table: pd.DataFrame, workers: int) -> float:
+    import netCDF4
+
+    t0 = time.perf_counter()
+    with netCDF4.Dataset(path) as ds:
+        iy, ix = _cells(ds, table)
+        nt = ds.dimensions["time"].size
+    flat = np.unique(iy * 100_000 + ix)
+    uy, ux = flat // 100_000, flat % 100_000
+    j0, j1 = int(uy.min()), int(uy.max()) + 1
+    out = np.empty((nt, flat.size), dtype=np.float32)
+    jobs = [(str(path), s, min(s + 12, nt), j0, j1, uy, ux) for s in range(0, nt, 12)]
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        for s, vals in pool.map(_slab, jobs):
+            out[s : s + vals.shape[0]] = vals
+    out = np.where(out == np.float32(-999.0), np.float32(np.nan), out)
+    col = np.searchsorted(flat, iy * 100_000 + ix)
+    _window_means(out[:, col].astype(np.float64), table._m0.to_numpy(), table._m1.to_numpy())
+    return time.perf_counter() - t0
+
+
+# -- driver --------------------------------------------------------------------------
+def _summ(xs: list[float]) -> dict[str, float]:
+    return {"median": statistics.median(xs), "min": min(xs), "max": max(xs), "n": len(xs)}
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    size = p.add_mutually_exclusive_group()
+    size.add_argument("--quick", action="store_true", help="tiny grid (default)")
+    size.add_argument("--full", action="store_true", help="720 x 1440 x 360 grid, 100,000 rows")
+    p.add_argument("--size", nargs=4, type=int, metavar=("NY", "NX", "NT", "ROWS"), help="a custom size")
+    p.add_argument("--repeats", type=int, default=None, help="repeats of (a), (b), (d) (default 3 full, 2 quick)")
+    p.add_argument("--sel-rows", type=int, default=None, help="rows for (c) (default 1000 full, 50 quick)")
+    p.add_argument("--workdir", help="folder for the grids (default: a temporary folder, removed)")
+    p.add_argument("--run-envlink", nargs=2, metavar=("GRID", "ROWS"), help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.run_envlink:
+        print(json.dumps(run_envlink(*args.run_envlink)))
+        return 0
+    if args.size:
+        (ny, nx, nt, n), reps, sel = args.size, 2, 200
+    elif args.full:
+        ny, nx, nt, n, reps, sel = 720, 1440, 360, 100_000, 3, 1000
+    else:
+        ny, nx, nt, n, reps, sel = 72, 144, 48, 2_000, 2, 50
+    reps = args.repeats or reps
+    sel = args.sel_rows or sel
+    workers = os.cpu_count() or 1
+    with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
+        folder = Path(tmp)
+        t0 = time.perf_counter()
+        paths = write_grids(folder, ny, nx, nt)
+        gen = time.perf_counter() - t0
+        table = make_rows(n, ny, nx, nt)
+        rows = folder / "rows.parquet"
+        table.to_parquet(rows)
+        report: dict[str, object] = {
+            "grid": [nt, ny, nx], "rows": n, "repeats": reps, "sel_rows": sel, "workers_d": workers,
+            "generate_s": gen, "sizes_mb": {k: v.stat().st_size / 1e6 for k, v in paths.items()},
+        }
+        for layout, path in paths.items():
+            a = [time_a(path, rows) for _ in range(reps)]
+            b = [time_b(path, table) for _ in range(reps)]
+            d = [time_d(path, table, workers) for _ in range(reps)]
+            c = time_c(path, table, sel)
+            ta, tb, td = _summ([x["seconds"] for x in a]), _summ(b), _summ(d)
+            report[layout] = {
+                "a_envlink_s": ta, "a_peak_mib": max(x["peak_mib"] for x in a),
+                "a_values": a[0]["values"], "a_flagged": a[0]["flagged"],
+                "b_numpy_s": tb, "c_sel_per_row_s": c, "d_stream_s": td,
+                "a_over_b": ta["median"] / tb["median"], "a_over_d": ta["median"] / td["median"],
+                "c_over_a_per_row": c / (ta["median"] / n),
+            }
+            print(json.dumps({layout: report[layout]}), file=sys.stderr, flush=True)
+    print(json.dumps(report, indent=2))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
