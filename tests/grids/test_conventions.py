@@ -13,11 +13,14 @@ import json
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 from reference.cf_conventions import KELVIN_AT_ZERO_CELSIUS, cf_unpack
 
 from envlink import open_grid
 from envlink.grids import ValidRangeWarning
+from envlink.grids.conventions import normalise_lonlat
 from grids._writers import simple_grid
 
 LAT = np.array([-10.0, 0.0, 10.0])
@@ -163,3 +166,28 @@ def test_unsigned_bytes(tmp_path):
     expected = np.where(as_unsigned == 255, np.nan, as_unsigned * 0.2 - 5.0)
     assert_allclose(g.values, expected, rtol=0.0, atol=1e-12)
     assert "_Unsigned: stored signed integers read as uint8" in _conventions(g)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    start=st.floats(min_value=-540.0, max_value=540.0, allow_nan=False),
+    step=st.sampled_from([0.25, 0.5, 1.0, 2.5, 5.0, 30.0]),
+    n=st.integers(min_value=1, max_value=40),
+    descending=st.booleans(),
+)
+def test_lonlat_normalisation_property(start, step, n, descending):
+    # Property (common practice): wrapping is a permutation of columns that keeps every
+    # value with its own longitude, and the result is ascending in [-180, 180).
+    n = min(n, int(360 / step))
+    lon = start + step * np.arange(n)
+    lat = np.array([5.0, 0.0, -5.0]) if descending else np.array([-5.0, 0.0, 5.0])
+    values = np.arange(3 * n, dtype=float).reshape(3, n)
+    da = xr.DataArray(values, dims=("lat", "lon"), coords={"lat": lat, "lon": lon})
+    out, _ = normalise_lonlat(da)
+    got_lon = out.lon.values
+    assert np.all(np.diff(got_lon) > 0) and got_lon.min() >= -180.0 and got_lon.max() < 180.0
+    assert np.all(np.diff(out.lat.values) > 0)
+    for j, x in enumerate(got_lon):
+        src = int(np.argmin(np.abs(((lon - x + 180.0) % 360.0) - 180.0)))
+        row = values[::-1, src] if descending else values[:, src]
+        assert_array_equal(out.values[:, j], row)

@@ -105,3 +105,17 @@ def test_daily_gaps_and_monthly_gaps_by_day_of_month(tmp_path):
     p2 = simple_grid(tmp_path / "m.nc", np.zeros((3, 3, 4)), lat=LAT, lon=LON, time=t2)
     info2 = grid_info(p2)
     assert info2.time["step"] == "monthly" and info2.time["gaps"][0]["missing_steps"] == 2
+
+
+def test_many_files_warned_and_cftime_calendar_summarised(tmp_path):
+    paths = []
+    for k in range(20):
+        stamps = [cftime.datetime(2000 + k, m, 16, calendar="360_day") for m in range(1, 13)]
+        t = np.asarray(cftime.date2num(stamps, "days since 2000-01-01", calendar="360_day"), dtype=float)
+        paths.append(simple_grid(tmp_path / f"y{k:02d}.nc", np.zeros((12, 3, 4), dtype="float32"),
+                                 lat=LAT, lon=LON, time=t, calendar="360_day"))
+    info = grid_info(str(tmp_path / "y*.nc"))
+    assert info.time["steps"] == 240 and info.time["step"] == "monthly"
+    assert info.time["end"] == "2020-01-01T00:00:00" and info.calendar == "360_day"
+    assert info.storage["files"] == 20
+    assert any("split over 20 files" in w for w in info.warnings)
