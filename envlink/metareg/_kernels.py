@@ -64,10 +64,11 @@ def _n_stats(p: int) -> int:
 
 def _unpack(vec: np.ndarray, p: int) -> Sums:
     pp = p * p
+    lo_r, lo_c = np.tril_indices(p, -1)
     mats = []
     for j in range(3):
         m = vec[j * pp:(j + 1) * pp].reshape(p, p).copy()
-        m = np.tril(m) + np.tril(m, -1).T  # kernels fill the lower triangle
+        m[lo_c, lo_r] = m[lo_r, lo_c]  # kernels fill the lower triangle
         mats.append(m)
     o = 3 * pp
     b1 = vec[o:o + p].copy()

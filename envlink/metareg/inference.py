@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
 from envlink.errors import ModelError
 
@@ -60,13 +60,13 @@ def coef_table(names: Sequence[str], beta: np.ndarray, se: np.ndarray,
     stat = beta / se
     a = 1.0 - (1.0 - level) / 2.0
     if df is None:
-        p = 2.0 * stats.norm.sf(np.abs(stat))
-        crit = np.full(beta.shape, stats.norm.ppf(a))
+        p = 2.0 * special.ndtr(-np.abs(stat))
+        crit = np.full(beta.shape, special.ndtri(a))
         dfo = np.full(beta.shape, np.nan)
     else:
         dfo = np.asarray(df, dtype=np.float64)
-        p = 2.0 * stats.t.sf(np.abs(stat), dfo)
-        crit = stats.t.ppf(a, dfo)
+        p = 2.0 * special.stdtr(dfo, -np.abs(stat))
+        crit = special.stdtrit(dfo, a)
     return pd.DataFrame({
         "term": list(names), "estimate": beta, "se": se, "statistic": stat, "p": p,
         "ci_low": beta - crit * se, "ci_high": beta + crit * se, "df": dfo,

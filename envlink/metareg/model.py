@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special, stats
 
 from envlink.errors import EnvlinkWarning, InputError, ModelError, param_error
 from envlink.metareg import estimators as est
@@ -200,7 +200,7 @@ class MetaRegression:
         self.terms_ = list(d.names)
         self.Q_E_ = float(g0.yPy)
         self.Q_E_df_ = k - p
-        self.Q_E_p_ = float(stats.chi2.sf(self.Q_E_, k - p))
+        self.Q_E_p_ = float(special.chdtrc(k - p, self.Q_E_))
         s2typ = (k - p) / g0.trP if g0.trP > 0 else 0.0
         self.typical_variance_ = s2typ
         self.variance_components_: dict[str, float] = {}
@@ -315,10 +315,10 @@ class MetaRegression:
         self.Q_M_df_ = m
         if self.test_ == "z":
             self.Q_M_ = w
-            self.Q_M_p_ = float(stats.chi2.sf(w, m))
+            self.Q_M_p_ = float(special.chdtrc(m, w))
         else:
             self.Q_M_ = w / m
-            self.Q_M_p_ = float(stats.f.sf(w / m, m, self.df_))
+            self.Q_M_p_ = float(special.fdtrc(m, self.df_, w / m))
 
     def _phi_blocks(self, d: Design, rows: list[np.ndarray]) -> list[np.ndarray]:
         v = np.asarray(d.v, dtype=np.float64)

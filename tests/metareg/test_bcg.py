@@ -174,3 +174,17 @@ def test_r2_and_prediction_interval(bcg):
                     rtol=1e-12)
     new = full.predict(bcg.iloc[[0]].assign(ablat=20.0))
     assert_allclose(new["estimate"].iloc[0], full.coef_[0] + 20 * full.coef_[1], rtol=1e-12)
+
+
+@pytest.mark.parametrize("mods", [None, "ablat"])
+def test_knapp_hartung_truncation(bcg, mods):
+    # Knapp & Hartung (2003) scale q = y'Py / (k - p); truncated form q* = max(1, q)
+    y, v, X = _design(bcg, mods)
+    z = MetaRegression(moderators=mods).fit(bcg, effect="yi", variance="vi")
+    W = np.diag(1 / (v + z.tau2_))
+    b = np.linalg.solve(X.T @ W @ X, X.T @ W @ y)
+    q = (y - X @ b) @ W @ (y - X @ b) / (len(y) - X.shape[1])
+    tr = MetaRegression(moderators=mods, test="knapp-hartung", truncate_kh=True).fit(
+        bcg, effect="yi", variance="vi")
+    assert_allclose(tr.kh_scale_, max(1.0, q), rtol=1e-10)
+    assert_allclose(tr.se_, z.se_ * np.sqrt(max(1.0, q)), rtol=1e-10)
