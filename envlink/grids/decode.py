@@ -156,6 +156,12 @@ def _decode_time_axis(ds: xr.Dataset, name: str, opts: DecodeOptions, notes: lis
         else:
             starts, ends = _to_cftime(b[:, 0], cal), _to_cftime(b[:, 1], cal)
         notes.append(f"time cells from bounds variable {bname!r}")
+    clim = tvar.attrs.get("climatology")
+    if clim and starts is None:
+        # CF §7.4: climatological bounds span the years averaged over, so they overlap from
+        # step to step; the cells are inferred from the stamps instead.
+        notes.append(f"climatological time axis ({clim!r} bounds span the years averaged): "
+                     "cells inferred from the stamps")
     return stamps, starts, ends, cal
 
 

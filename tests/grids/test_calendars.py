@@ -186,3 +186,20 @@ def test_daily_stamps_a_hair_before_midnight(tmp_path):
     p = simple_grid(tmp_path / "hair.nc", _data(5), lat=LAT, lon=LON, time=t)
     g = open_grid(p)
     assert [str(v)[:10] for v in g.time_start.values] == [f"2000-01-0{d}" for d in range(1, 6)]
+
+
+def test_climatological_time_axis_cells_from_stamps(tmp_path):
+    # CF §7.4: a monthly climatology over 1991-2020 has climatology bounds spanning those
+    # years; the steps are still the calendar months of the stamps.
+    stamps = [cftime.datetime(2000, m, 15, calendar="standard") for m in range(1, 13)]
+    t = np.asarray(cftime.date2num(stamps, "days since 2000-01-01", calendar="standard"), dtype=float)
+    lo = [cftime.datetime(1991, m, 1, calendar="standard") for m in range(1, 13)]
+    hi = [cftime.datetime(2020, m % 12 + 1, 1, calendar="standard") if m < 12 else
+          cftime.datetime(2021, 1, 1, calendar="standard") for m in range(1, 13)]
+    b = np.column_stack([cftime.date2num(lo, "days since 2000-01-01"), cftime.date2num(hi, "days since 2000-01-01")])
+    p = simple_grid(tmp_path / "clim.nc", _data(12), lat=LAT, lon=LON, time=t,
+                    time_attrs={"climatology": "climatology_bounds"},
+                    extra={"climatology_bounds": (("time", "nv"), b, {})})
+    g = open_grid(p)
+    assert str(g.time_start.values[1])[:10] == "2000-02-01" and str(g.time_end.values[1])[:10] == "2000-03-01"
+    assert any(c.startswith("climatological time axis") for c in json.loads(g.attrs["envlink_conventions"]))
