@@ -208,7 +208,7 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
     """
     dask_in = _is_dask(y) or _is_dask(v) or _is_dask(X)
     if dask_in:
-        return _dask_design(y, v, X, intercept=intercept)
+        return _dask_design(y, v, X, intercept=intercept, groups=groups)
     names: list[str] | None = None
     if isinstance(X, pd.DataFrame):
         names = [str(c) for c in X.columns]
@@ -272,7 +272,8 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
                   keep, None)
 
 
-def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool) -> Design:
+def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool,
+                 groups: dict[str, Any] | None) -> Design:
     import dask
     import dask.array as da
 
@@ -298,13 +299,20 @@ def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool) -> Design:
         )
     names = [f"x{j + 1}" for j in range(X.shape[1])]
     full = ([INTERCEPT] if intercept else []) + names
+    gr = {r: np.asarray(g) for r, g in (groups or {}).items() if g is not None}
+    for r, g in gr.items():
+        if g.shape != (k,):
+            raise InputError(f"{r}= must hold one label per effect ({k}); got shape {g.shape}.")
     dropped: list[int] = []
+    keep = labels = None
     if int(n_nan):
-        keepm = ~nan
-        dropped = np.flatnonzero(nan.compute()).tolist()
-        y, v, X = y[keepm], v[keepm], X[keepm]
+        keep = ~np.asarray(nan.compute())
+        dropped = np.flatnonzero(~keep).tolist()
+        labels = np.flatnonzero(keep)
+        y, v, X = y[keep], v[keep], X[keep]
         y, v, X = (a.compute_chunk_sizes() for a in (y, v, X))
-    return Design(y, v, X, intercept, full, None, len(dropped), dropped, None, {})
+        gr = {r: g[keep] for r, g in gr.items()}
+    return Design(y, v, X, intercept, full, labels, len(dropped), dropped, None, gr, keep, None)
 
 
 def new_rows(design_spec: Any, newdata: Any, *, intercept: bool, m: int) -> np.ndarray:

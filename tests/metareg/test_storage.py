@@ -61,3 +61,21 @@ def test_dask_same_answer():
                                               X=da.from_array(X, chunks=(10_000, 2)))
         b = MetaRegression(method=method).fit(y=y, v=v, X=X)
         assert_allclose(a.tau2_, b.tau2_, rtol=1e-9)
+
+
+@pytest.mark.requires_dask
+def test_dask_with_missing_rows_and_clusters():
+    import dask.array as da
+
+    y, v, X = _sim(3_000, seed=4)
+    y[5] = np.nan
+    cl = np.arange(3_000) // 30
+    with pytest.warns(UserWarning, match="1 row"):
+        ref = MetaRegression(cluster=cl).fit(y=y, v=v, X=X)
+    with pytest.warns(UserWarning, match="1 row"):
+        m = MetaRegression(cluster=cl).fit(y=da.from_array(y, chunks=1_000),
+                                           v=da.from_array(v, chunks=1_000),
+                                           X=da.from_array(X, chunks=(1_000, 2)))
+    assert m.n_dropped_ == ref.n_dropped_ == 1
+    assert_allclose(m.se_, ref.se_, rtol=1e-9)
+    assert_allclose(m.coefficients_["df"], ref.coefficients_["df"], rtol=1e-9)
