@@ -318,8 +318,10 @@ def open_grid(
     ...     coords={"time": ("time", [0, 1], {"units": "days since 2000-01-01"}),
     ...             "lat": [10.0, 0.0], "lon": [90.0, 270.0]})
     >>> g = open_grid(ds)
-    >>> g.dims, g.lat.values.tolist(), g.lon.values.tolist(), float(g[0, 0, 0])
-    (('time', 'lat', 'lon'), [0.0, 10.0], [-90.0, 90.0], 26.850000000000023)
+    >>> g.dims, g.lat.values.tolist(), g.lon.values.tolist(), round(float(g[0, 0, 0]), 6)
+    (('time', 'lat', 'lon'), [0.0, 10.0], [-90.0, 90.0], 26.85)
+    >>> g.attrs["units"], str(g.time_end.values[-1])[:10]
+    ('degC', '2000-01-03')
     """
     opts = DecodeOptions(lat=lat, lon=lon, time=time, units=units, calendar=calendar, select=select)
     if time is not None and time is not False and not isinstance(time, str):
