@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from envlink._projectschema import check_columns, check_files, formula_columns, validate, where
+from envlink._util import atomic_path
 from envlink.errors import InputError
 
 __all__ = ["Project", "RunResult", "load_project", "run_project", "run_demo"]
@@ -375,36 +376,50 @@ def run_project(
             steps.done("model")
         table.attrs = {}
         exp = project.section("export")
+        html = None
+        if "report" in targets:  # rendered first, so the files land together at the end
+            html = _render_report(project, table, fit, grids, provenance, effect=effect,
+                                  variance=variance, egger=egger, permutation_p=permutation_p)
+            steps.done("report")
         paths = export_table(
             table, out_dir, formats=exp.get("formats", ["csv", "parquet", "gpkg"]),
             name=exp.get("name", "enriched"), fit=fit, provenance=provenance,
             input_columns=input_columns, project_sha256=project.sha256, title=project.title,
             force=force,
         )  # fmt: skip
+        if html is not None:
+            with atomic_path(targets["report"]) as tmp:
+                tmp.write_text(html, encoding="utf-8")
+            paths["report"] = targets["report"]
         steps.done("export")
-        if "report" in targets:
-            moderator = exp.get("moderator")
-            if moderator is None and "model" in project.data:
-                mods = formula_columns(project.section("model").get("moderators") or "",
-                                        [str(c) for c in table.columns])  # fmt: skip
-                moderator = mods[0] if mods else None
-            field_grid = None
-            for cov in covs:
-                if cov["name"] == moderator or field_grid is None:
-                    field_grid = grids[cov["grid"]]
-            units = {c: v.get("units") for c, v in provenance["covariates"].items() if v.get("units")}
-            paths["report"] = envlink.write_report(
-                targets["report"], table=table, fit=fit, covariates=[c["name"] for c in covs],
-                moderator=moderator, effect=effect, variance=variance, field=field_grid,
-                provenance=provenance, windows_tried=max(1, len(covs)), title=project.title,
-                egger=egger, label=project.section("studies").get("study"), units=units,
-                permutation_p=permutation_p,
-            )  # fmt: skip
-            steps.done("report")
     finally:
         steps.close()
     return RunResult(out=out_dir, table=table, fit=fit, paths=paths, fit_rows=fit_rows,
                      windows_tried=len(covs), seconds=steps.seconds)  # fmt: skip
+
+
+def _render_report(project: Project, table: pd.DataFrame, fit: Any, grids: Mapping[str, Any],
+                   provenance: Mapping[str, Any], **options: Any) -> str:
+    """The report's HTML, drawn over the moderator's grid (or the first grid)."""
+    from envlink.report import render_report
+
+    covs = project.covariates
+    moderator = project.section("export").get("moderator")
+    if moderator is None and "model" in project.data:
+        mods = formula_columns(project.section("model").get("moderators") or "",
+                               [str(c) for c in table.columns])  # fmt: skip
+        moderator = mods[0] if mods else None
+    field_grid = None
+    for cov in covs:
+        if cov["name"] == moderator or field_grid is None:
+            field_grid = grids[cov["grid"]]
+    units = {c: v["units"] for c, v in provenance["covariates"].items() if v.get("units")}
+    return render_report(
+        table=table, fit=fit, covariates=[c["name"] for c in covs], moderator=moderator,
+        field=field_grid, provenance=provenance, windows_tried=max(1, len(covs)),
+        title=project.title, label=project.section("studies").get("study"), units=units,
+        **options,
+    )  # fmt: skip
 
 
 def _resolve(project: Project, value: str) -> Path:

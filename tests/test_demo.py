@@ -113,6 +113,38 @@ def test_rerun_reuses_the_extraction_cache(demo: RunResult, capsys) -> None:
     assert main(["demo", "--out", str(demo.out), "--no-progress"]) == 2  # exists, no --force
 
 
+def test_run_killed_mid_export_leaves_previous_output_intact(demo: RunResult) -> None:
+    import hashlib
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    def digest() -> dict[str, str]:
+        return {p.name: hashlib.sha256(p.read_bytes()).hexdigest()
+                for p in sorted(demo.out.iterdir()) if p.is_file() and not p.name.startswith(".")}
+
+    before = digest()
+    assert len(before) == 7
+    proc = subprocess.Popen([sys.executable, "-m", "envlink", "demo", "--out", str(demo.out),
+                             "--force", "--no-progress"], stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)  # fmt: skip
+    try:
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and proc.poll() is None:
+            if any(p.name.endswith(".part") for p in demo.out.iterdir()):
+                break  # the export's temporary files exist: it is midway
+            time.sleep(0.001)
+        assert proc.poll() is None, "the run finished before it could be interrupted"
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert digest() == before
+
+
 def test_generator_is_reproducible_and_used_when_files_are_missing(tmp_path: Path,
                                                                   monkeypatch) -> None:
     import envlink.demo_grids as demo_grids
