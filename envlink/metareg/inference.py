@@ -21,6 +21,7 @@ __all__ = [
     "knapp_hartung_scale",
     "wald",
     "coef_table",
+    "coef_arrays",
     "RobustFit",
     "cluster_robust",
     "PermutationResult",
@@ -54,9 +55,9 @@ def wald(beta: np.ndarray, vcov: np.ndarray, idx: Sequence[int]) -> float:
     return float(b @ np.linalg.solve(V, b))
 
 
-def coef_table(names: Sequence[str], beta: np.ndarray, se: np.ndarray,
-               df: np.ndarray | None, level: float) -> pd.DataFrame:
-    """Coefficient table: estimate, se, statistic, p, ci_low, ci_high, df (z when df is None)."""
+def coef_arrays(beta: np.ndarray, se: np.ndarray, df: np.ndarray | None,
+                level: float) -> dict[str, np.ndarray]:
+    """Statistic, p, CI bounds and df per coefficient (z when ``df`` is None)."""
     stat = beta / se
     a = 1.0 - (1.0 - level) / 2.0
     if df is None:
@@ -67,10 +68,14 @@ def coef_table(names: Sequence[str], beta: np.ndarray, se: np.ndarray,
         dfo = np.asarray(df, dtype=np.float64)
         p = 2.0 * special.stdtr(dfo, -np.abs(stat))
         crit = special.stdtrit(dfo, a)
-    return pd.DataFrame({
-        "term": list(names), "estimate": beta, "se": se, "statistic": stat, "p": p,
-        "ci_low": beta - crit * se, "ci_high": beta + crit * se, "df": dfo,
-    })
+    return {"estimate": beta, "se": se, "statistic": stat, "p": p,
+            "ci_low": beta - crit * se, "ci_high": beta + crit * se, "df": dfo}
+
+
+def coef_table(names: Sequence[str], beta: np.ndarray, se: np.ndarray,
+               df: np.ndarray | None, level: float) -> pd.DataFrame:
+    """Coefficient table: term, estimate, se, statistic, p, ci_low, ci_high, df."""
+    return pd.DataFrame({"term": list(names), **coef_arrays(beta, se, df, level)})
 
 
 @dataclass
@@ -334,7 +339,7 @@ def run_permutations(model: Any, n_permutations: int, seed: int | None,
             f = _clone(model)._fit_design(_subset(d, rows, permute_x=perm), emit=False)
         except ModelError:  # a permutation that makes the design singular counts as extreme
             return float("inf"), np.full(len(idx), np.inf)
-        return float(f.Q_M_), f.coefficients_["statistic"].to_numpy()[idx]
+        return float(f.Q_M_), f._coef_arrays["statistic"][idx]
 
-    observed = (float(model.Q_M_), model.coefficients_["statistic"].to_numpy()[idx])
+    observed = (float(model.Q_M_), model._coef_arrays["statistic"][idx])
     return permutation_test(refit, d.k, observed, terms, n_permutations, seed, progress)

@@ -304,7 +304,8 @@ class MetaRegression:
             self.test_, self.df_ = "z", None
         self.vcov_ = vc
         self.se_ = np.sqrt(np.diag(vc))
-        self.coefficients_ = inf.coef_table(self.terms_, self.coef_, self.se_, df, self.level)
+        self._coef_arrays = inf.coef_arrays(self.coef_, self.se_, df, self.level)
+        self.__dict__.pop("coefficients_", None)  # the table is built on first access
         idx = [j for j, n in enumerate(self.terms_) if n != INTERCEPT]
         self._mod_idx = idx
         if not idx:
@@ -345,6 +346,10 @@ class MetaRegression:
         if name.endswith("_") and not name.startswith("__"):
             if name in ("tau2_ci_", "R2_"):
                 return getattr(type(self), "_lazy_" + name[:-1])(self)
+            if name == "coefficients_" and "_coef_arrays" in self.__dict__:
+                table = pd.DataFrame({"term": self.terms_, **self._coef_arrays})
+                self.__dict__["coefficients_"] = table
+                return table
             raise AttributeError(
                 f"MetaRegression has no fitted attribute {name!r}: call fit(...) first."
             )

@@ -147,8 +147,12 @@ def _time(fn, repeats: int):
         t0 = time.perf_counter()
         out = fn()
         times.append(time.perf_counter() - t0)
-    return out, {"median_s": statistics.median(times), "min_s": min(times), "max_s": max(times),
-                 "runs": repeats}
+    return out, _stats(times)
+
+
+def _stats(times: list[float]) -> dict:
+    return {"median_s": statistics.median(times), "min_s": min(times), "max_s": max(times),
+            "runs": len(times)}
 
 
 def run_case(k: int, repeats: int, statsmodels_fit: bool, extra_checks: bool) -> dict:
@@ -157,11 +161,19 @@ def run_case(k: int, repeats: int, statsmodels_fit: bool, extra_checks: bool) ->
     y, v, X = simulate(k)
     input_mb = (y.nbytes + v.nbytes + X.nbytes) / 2**20
     MetaRegression().fit(y=y[:1000], v=v[:1000], X=X[:1000])  # compile / warm up
+    MetaRegression().fit(y=y[:1000].astype(np.float32), v=v[:1000].astype(np.float32),
+                         X=X[:1000].astype(np.float32))
     with _PeakRSS() as mem:
         m = MetaRegression(method="REML").fit(y=y, v=v, X=X)
     fit_mem_mb = (mem.peak - mem.base) / 2**20
-    m, t_env = _time(lambda: MetaRegression(method="REML").fit(y=y, v=v, X=X), repeats)
-    ref, t_tight = _time(lambda: tight_reml(y, v, X), repeats)
+    # interleaved runs, so that load from other processes hits both alike
+    env_t, tight_t = [], []
+    for _ in range(repeats):
+        m, t = _time(lambda: MetaRegression(method="REML").fit(y=y, v=v, X=X), 1)
+        env_t.append(t["median_s"])
+        ref, t = _time(lambda: tight_reml(y, v, X), 1)
+        tight_t.append(t["median_s"])
+    t_env, t_tight = _stats(env_t), _stats(tight_t)
     res = {
         "k": k, "input_mb": round(input_mb, 1), "envlink": t_env, "tight": t_tight,
         "ratio_envlink_over_tight": t_env["median_s"] / t_tight["median_s"],
