@@ -9,10 +9,10 @@ import pyproj
 import pytest
 import shapely
 from numpy.testing import assert_allclose
+from reference import geodesy as ref
 from shapely.geometry import Polygon, box
 
 from envlink import geo
-from reference import geodesy as ref
 
 # A sphere of the IUGG mean radius in pyproj (GeographicLib solves it exactly).
 SPHERE = pyproj.Geod(a=ref.IUGG_MEAN_RADIUS_KM * 1000.0, b=ref.IUGG_MEAN_RADIUS_KM * 1000.0)

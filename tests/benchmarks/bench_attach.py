@@ -11,8 +11,9 @@ layouts: chunked (12, 90, 180) with zlib level 1, and contiguous uncompressed. T
 table holds ocean-ish sites (|lat| <= 35°, about 5 % of them on land cells next to
 the coast) with windows of 1-36 whole months. Timed, per layout:
 
-(a) envlink: ``open_grid`` + ``attach(spatial="nearest-valid:25km", stat="mean")`` with
-    all its QA flags and provenance, in a fresh subprocess (peak RSS from getrusage);
+(a) envlink: ``open_grid`` (dask chunks of whole series by 90 x 180 cells) +
+    ``attach(spatial="nearest-valid:25km", stat="mean")`` with all its QA flags and
+    provenance, in a fresh subprocess (peak RSS from getrusage);
 (b) bare NumPy as a skilled user writes it: read the needed latitude band into
     memory, fancy-index the nearest cells (float64), window means from cumulative
     sums; no QA;
@@ -42,6 +43,8 @@ import numpy as np
 import pandas as pd
 
 CHUNKS = (12, 90, 180)
+#: dask chunks for (a): whole series, spatial blocks aligned with the file's chunks
+DASK_CHUNKS = {"time": -1, "lat": 90, "lon": 180}
 
 
 # -- data ----------------------------------------------------------------------------
@@ -123,7 +126,7 @@ def run_envlink(path: str, rows: str) -> dict[str, float]:
 
     table = pd.read_parquet(rows).drop(columns=["_m0", "_m1"])
     t0 = time.perf_counter()
-    grid = open_grid(path, "sst", chunks=None)
+    grid = open_grid(path, "sst", chunks=DASK_CHUNKS)
     out = attach(table, grid, name="sst", spatial="nearest-valid:25km", stat="mean", progress=False)
     wall = time.perf_counter() - t0
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # KiB -> MiB (Linux)

@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 import xarray as xr
 from numpy.testing import assert_allclose
+from reference import heat_stress as hs
 
 from envlink.errors import InputError
 from envlink.extract.attach import attach
 from envlink.testing import make_grid
-from reference import heat_stress as hs
 
 from ._grids import daily_point_grid, table
 

@@ -133,3 +133,15 @@ def test_window_partly_and_wholly_outside_grid_time():
     assert_allclose(out["v"][0], 1.5, rtol=1e-12)
     assert_allclose(out["v_coverage"][0], 2 / 3, rtol=1e-12)
     assert np.isnan(out["v"][1]) and out["v_flags"][1] == "outside_grid_time"
+
+
+def test_docs_worked_example():
+    # docs/extract.md: Jan 10, Feb 20, Mar 30 (2001: 31, 28, 31 days), hand-computed
+    g = make_grid(np.array([10.0, 20.0, 30.0, 40.0]).reshape(4, 1, 1), lat=[0.5], lon=[0.5], start="2001-01-01")
+    t = table([0.5], [0.5], "2001-01-01", "2001-03-31")
+    expected = {
+        "mean": 20.0, "min": 10.0, "max": 30.0, "sum": 60.0, "std": np.sqrt(6200.0 / 90.0),
+        "quantile:0.5": 20.0, "above:15": 59.0 / 90.0, "degree-days:25": 155.0,
+    }
+    for stat, value in expected.items():
+        assert_allclose(attach(t, g, name="v", stat=stat)["v"], [value], rtol=1e-12, err_msg=stat)
