@@ -110,3 +110,17 @@ def test_attach_help_lists_forms(capsys):
     text = capsys.readouterr().out
     for word in ("dhw-max", "nearest-valid:Dkm", "around-mid", "--time-weights", "--min-coverage", "--no-cache"):
         assert word in text
+
+
+def test_attach_dhw_with_mmm_climatology_file(files):
+    clim = xr.Dataset({"mmm": (("lat", "lon"), [[29.0]], {"units": "degC"})},
+                      coords={"lat": [0.5], "lon": [10.5]})
+    clim.to_netcdf(files / "mmm.nc")
+    pd.DataFrame({"site_lat": [0.5], "site_lon": [10.5], "period_start": ["2000-04-01"],
+                  "period_end": ["2000-04-29"]}).to_csv(files / "one.csv", index=False)
+    out = files / "dhw2.csv"
+    rc = main(["attach", str(files / "one.csv"), "--grid", str(files / "daily.nc"), "--name", "dhw",
+               "--stat", "dhw-max", "--mmm", str(files / "mmm.nc"), "-o", str(out), "--no-cache"])
+    assert rc == 0
+    # HotSpot 1 °C (exactly the threshold) every day: 84 × 1 / 7 = 12 °C-weeks
+    assert_allclose(pd.read_csv(out)["dhw"][0], 12.0, rtol=1e-12)
