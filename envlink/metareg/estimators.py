@@ -108,10 +108,12 @@ def _fisher(d: Any, method: str, start: float, tol: float, max_iter: int,
         sc = _score(g, method)
         if t <= 0.0 and step <= 0.0:
             return TauFit(0.0, True, it, msgs, g)
-        if prev is not None and (sc > 0) != (prev[1] > 0) and sc != prev[1]:
-            # Fisher steps overshoot when expected and observed information differ:
-            # the score root is bracketed by the last two iterates, take the secant step
-            step = -sc * (t - prev[0]) / (sc - prev[1])
+        if prev is not None and t != prev[0] and sc != prev[1]:
+            slope = (sc - prev[1]) / (t - prev[0])
+            if slope < 0:
+                # Fisher steps overshoot (or creep) when expected and observed information
+                # differ; the secant of the score is a Newton step on observed curvature
+                step = -sc / slope
         prev = (t, sc)
         new = t + step
         if new < 0.0:  # truncate at the boundary; halving below keeps the likelihood rising

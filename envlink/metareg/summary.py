@@ -70,7 +70,15 @@ class FitSummary:
             lines.append((f"Moderators Q_M ({kind})",
                           f"{_f(r['Q_M'])} on ({r['Q_M_df']}{den}) df, p = {_p(r['Q_M_p'])}"))
         tname = "z" if r["test"] == "z" else "t"
-        lines.append(("Tests", "normal (z)" if tname == "z" else "t"))
+        m = self.model
+        if tname == "z":
+            kind = "normal (z)"
+        elif m is not None and getattr(m, "cluster", None) is not None:
+            kind = (f"t, CR2 cluster-robust ({m.n_clusters_} clusters), Satterthwaite df per "
+                    "coefficient")
+        else:
+            kind = f"t (Knapp-Hartung, {_f(r['df'], 0)} df)"
+        lines.append(("Tests", kind))
         header = ["term", "estimate", "se", tname, "p", "ci_low", "ci_high"]
         if tname == "t":
             header.append("df")

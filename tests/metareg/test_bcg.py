@@ -188,3 +188,27 @@ def test_knapp_hartung_truncation(bcg, mods):
         bcg, effect="yi", variance="vi")
     assert_allclose(tr.kh_scale_, max(1.0, q), rtol=1e-10)
     assert_allclose(tr.se_, z.se_ * np.sqrt(max(1.0, q)), rtol=1e-10)
+
+
+def test_moment_estimators_with_moderator_dense(bcg):
+    # meta-regression forms written densely: DerSimonian & Laird 1986 (via tr P0),
+    # Hedges 1983 (OLS residuals), Sidik & Jonkman 2005, Paule & Mandel 1982 (brentq)
+    y, v, X = _design(bcg, "ablat")
+    k, p = X.shape
+
+    def P(t2):
+        W = np.diag(1 / (v + t2))
+        return W - W @ X @ np.linalg.inv(X.T @ W @ X) @ X.T @ W
+
+    Q0 = y @ P(0) @ y
+    dl = max(0.0, (Q0 - (k - p)) / np.trace(P(0)))
+    H = X @ np.linalg.inv(X.T @ X) @ X.T
+    e = y - H @ y
+    he = max(0.0, (e @ e - np.trace((np.eye(k) - H) @ np.diag(v))) / (k - p))
+    t0 = e @ e / k
+    sj = t0 * (y @ P(t0) @ y) / (k - p)
+    pm = optimize.brentq(lambda t: y @ P(t) @ y - (k - p), 0, 10, xtol=1e-15)
+    for method, ref, rtol in [("DL", dl, 1e-6), ("HE", he, 1e-6), ("SJ", sj, 1e-6),
+                              ("PM", pm, 1e-5)]:
+        m = MetaRegression(method=method, moderators="ablat").fit(bcg, effect="yi", variance="vi")
+        assert_allclose(m.tau2_, ref, rtol=rtol)
