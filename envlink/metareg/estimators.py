@@ -16,7 +16,7 @@ from scipy import optimize
 from envlink.errors import ModelError
 from envlink.metareg._kernels import Sums, weighted_sums
 
-__all__ = ["Method", "GLS", "gls", "estimate_tau2", "solve_q", "TauFit", "METHODS"]
+__all__ = ["Method", "GLS", "gls", "estimate_tau2", "solve_q", "TauFit", "METHODS", "checked_sums"]
 
 Method = Literal["REML", "ML", "DL", "PM", "HE", "SJ"]
 METHODS = ("REML", "ML", "DL", "PM", "HE", "SJ")
@@ -252,3 +252,31 @@ def estimate_tau2(d: Any, method: str, *, tol: float = 1e-10, max_iter: int = 10
         q0 = gls(sums_at(d, t0, use_numba), t0).yPy
         return TauFit(float(t0 * q0 / (k - p)), True, 1)
     raise ModelError(f"Unknown tau² method {method!r}; use one of {', '.join(METHODS)}.")
+
+
+def checked_sums(d: Any, un: bool = True) -> Sums:
+    """Sums at tau² = 0 with a check that the moderators are not collinear or constant."""
+    s = sums_at(d, 0.0, un)
+    A = s.A
+    dg = np.diag(A)
+    names = d.names
+    from envlink.metareg.design import INTERCEPT
+
+    for j in range(len(names)):
+        if dg[j] <= 0:
+            raise ModelError(f"Moderator term {names[j]!r} is zero in every row; remove it.")
+    D = 1.0 / np.sqrt(dg)
+    R = A * D[:, None] * D[None, :]
+    for j in range(1, len(names)):
+        sub = R[:j, :j]
+        r = R[:j, j]
+        resid = 1.0 - r @ np.linalg.solve(sub, r)
+        if resid < 1e-10:
+            constant = names[0] == INTERCEPT and abs(1.0 - R[0, j] ** 2) < 1e-10
+            what = ("constant (it adds nothing beside the intercept)" if constant
+                    else "a linear combination of earlier terms")
+            raise ModelError(
+                f"Moderator term {names[j]!r} is {what}: the moderators are collinear. "
+                f"Remove it or merge categories (terms: {', '.join(names)})."
+            )
+    return s

@@ -41,14 +41,6 @@ def _use_numba() -> bool:
     return os.environ.get("ENVLINK_NUMBA", "1") != "0"
 
 
-def _num(x: Any) -> float | None:
-    """JSON-safe float: None for missing or non-finite values."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if np.isfinite(x) else None
-
-
 class MetaRegression:
     """Mixed-effects meta-regression with known sampling variances.
 
@@ -191,7 +183,7 @@ class MetaRegression:
             msgs.append(f"{d.n_dropped} row(s) dropped for missing effect, variance or "
                         f"moderator values (rows {shown}{more}).")
         un = _use_numba()
-        s0 = _checked_sums(d, un)
+        s0 = est.checked_sums(d, un)
         g0 = est.gls(s0, 0.0)
         self._g0_syy = s0.syy1
         self._design, self._g0, self._un = d, g0, un
@@ -437,28 +429,10 @@ class MetaRegression:
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON contract of DESIGN.md §4 (every value JSON-safe; missing -> None)."""
+        from envlink.metareg.summary import result_dict
+
         self._check_fitted()
-        ci = self.tau2_ci_
-        r2 = self.R2_
-        coefs = []
-        for row in self.coefficients_.itertuples(index=False):
-            item = {"term": row.term, "estimate": _num(row.estimate), "se": _num(row.se),
-                    "statistic": _num(row.statistic), "p": _num(row.p),
-                    "ci_low": _num(row.ci_low), "ci_high": _num(row.ci_high)}
-            if self.test_ == "t":
-                item["df"] = _num(row.df)
-            coefs.append(item)
-        return {
-            "method": self.method_, "k": int(self.k_), "p": int(self.p_),
-            "tau2": _num(self.tau2_), "tau2_ci": [_num(ci[0]), _num(ci[1])],
-            "I2": _num(self.I2_), "H2": _num(self.H2_), "R2": _num(r2),
-            "Q_E": _num(self.Q_E_), "Q_E_df": int(self.Q_E_df_), "Q_E_p": _num(self.Q_E_p_),
-            "Q_M": _num(self.Q_M_), "Q_M_df": int(self.Q_M_df_), "Q_M_p": _num(self.Q_M_p_),
-            "test": self.test_, "df": _num(self.df_), "coefficients": coefs,
-            "variance_components": {k: _num(v) for k, v in self.variance_components_.items()},
-            "converged": bool(self.converged_), "iterations": int(self.n_iter_),
-            "warnings": list(self.warnings_),
-        }
+        return result_dict(self)
 
     def summary(self) -> Any:
         """A summary that prints as a text table and renders as HTML in notebooks."""
@@ -495,32 +469,6 @@ class MetaRegression:
 
         self._check_fitted()
         return run_permutations(self, n_permutations, seed, progress)
-
-
-def _checked_sums(d: Design, un: bool) -> Any:
-    """Sums at tau² = 0 with a check that the moderators are not collinear or constant."""
-    s = est.sums_at(d, 0.0, un)
-    A = s.A
-    dg = np.diag(A)
-    names = d.names
-    for j in range(len(names)):
-        if dg[j] <= 0:
-            raise ModelError(f"Moderator term {names[j]!r} is zero in every row; remove it.")
-    D = 1.0 / np.sqrt(dg)
-    R = A * D[:, None] * D[None, :]
-    for j in range(1, len(names)):
-        sub = R[:j, :j]
-        r = R[:j, j]
-        resid = 1.0 - r @ np.linalg.solve(sub, r)
-        if resid < 1e-10:
-            constant = names[0] == INTERCEPT and abs(1.0 - R[0, j] ** 2) < 1e-10
-            what = ("constant (it adds nothing beside the intercept)" if constant
-                    else "a linear combination of earlier terms")
-            raise ModelError(
-                f"Moderator term {names[j]!r} is {what}: the moderators are collinear. "
-                f"Remove it or merge categories (terms: {', '.join(names)})."
-            )
-    return s
 
 
 def meta_regression(data: pd.DataFrame, *, effect: str = "effect", variance: str = "variance",

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import html
+import math
 from typing import Any
 
-__all__ = ["FitSummary"]
+__all__ = ["FitSummary", "result_dict"]
 
 _METHOD_WORDS = {
     "REML": "restricted maximum likelihood", "ML": "maximum likelihood",
@@ -29,6 +30,45 @@ def _p(x: float | None) -> str:
     if x is None:
         return "-"
     return "<1e-16" if x < 1e-16 else (f"{x:.2e}" if x < 1e-4 else f"{x:.4f}")
+
+
+def _num(x: Any) -> float | None:
+    """JSON-safe float: None for missing or non-finite values."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def result_dict(m: Any) -> dict[str, Any]:
+    """The JSON contract of DESIGN.md §4 for a fitted model (JSON-safe; missing -> None)."""
+    ci = m.tau2_ci_
+    r2 = m.R2_
+    coefs = []
+    undefined = []
+    for row in m.coefficients_.itertuples(index=False):
+        item = {"term": row.term}
+        for key in ("estimate", "se", "statistic", "p", "ci_low", "ci_high") + (
+                ("df",) if m.test_ == "t" else ()):
+            item[key] = _num(getattr(row, key))
+            if item[key] is None:
+                undefined.append(f"{row.term}.{key}")
+        coefs.append(item)
+    notes = list(m.warnings_)
+    if undefined:
+        notes.append("Undefined values are null: " + ", ".join(undefined) + " (e.g. too few "
+                     "clusters or a degenerate design for the requested test).")
+    return {
+        "method": m.method_, "k": int(m.k_), "p": int(m.p_),
+        "tau2": _num(m.tau2_), "tau2_ci": [_num(ci[0]), _num(ci[1])],
+        "I2": _num(m.I2_), "H2": _num(m.H2_), "R2": _num(r2),
+        "Q_E": _num(m.Q_E_), "Q_E_df": int(m.Q_E_df_), "Q_E_p": _num(m.Q_E_p_),
+        "Q_M": _num(m.Q_M_), "Q_M_df": int(m.Q_M_df_), "Q_M_p": _num(m.Q_M_p_),
+        "test": m.test_, "df": _num(m.df_), "coefficients": coefs,
+        "variance_components": {k: _num(v) for k, v in m.variance_components_.items()},
+        "converged": bool(m.converged_), "iterations": int(m.n_iter_),
+        "warnings": notes,
+    }
 
 
 class FitSummary:
