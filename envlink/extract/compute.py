@@ -30,7 +30,7 @@ from envlink.extract.stats import (
     monthly_climatology,
     window_stat,
 )
-from envlink.geo import EARTH_RADIUS_KM
+from envlink.geo import EARTH_RADIUS_KM, cell_edges
 
 __all__ = ["compute_values", "nearest_valid", "coverage"]
 
@@ -88,7 +88,14 @@ def _mmm_from_grid(mmm: xr.DataArray, lat: np.ndarray, lon: np.ndarray) -> np.nd
     if set(da.dims) != {"lat", "lon"}:
         raise InputError(f"The mmm climatology must have dims (lat, lon); got {tuple(mmm.dims)}.")
     pick = da.sel(lat=xr.DataArray(lat, dims="p"), lon=xr.DataArray(lon, dims="p"), method="nearest")
-    return np.asarray(pick.values, dtype=np.float64)
+    values = np.asarray(pick.values, dtype=np.float64)
+    # a cell outside the climatology's extent gets no MMM (never the edge value)
+    la_e = cell_edges(np.sort(np.asarray(da["lat"].values, dtype=np.float64)))
+    lo_e = cell_edges(np.sort(np.asarray(da["lon"].values, dtype=np.float64)))
+    span = lo_e[-1] - lo_e[0]
+    inside_lon = np.ones(lon.shape, bool) if span >= 360.0 - 1e-6 else (lon >= lo_e[0]) & (lon <= lo_e[-1])
+    inside = (lat >= la_e[0]) & (lat <= la_e[-1]) & inside_lon
+    return np.where(inside, values, np.nan)
 
 
 def compute_values(
@@ -136,7 +143,9 @@ def compute_values(
                 v = m[loc]
             else:
                 v, c = window_stat(dhw_series(S, m), steps, loc, sp, "max", weights=weights)
-                v = np.where(np.isfinite(m[loc]), v, np.nan)
+                no_mmm = ~np.isfinite(m[loc])
+                v = np.where(no_mmm, np.nan, v)
+                extra.add(rows[no_mmm & (c > 0)], "no_mmm")
         else:
             v, c = window_stat(S, steps, loc, sp, kind, weights=weights, q=st.q, threshold=st.threshold)
         value[rows], cov[rows] = v, c

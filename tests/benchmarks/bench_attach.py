@@ -130,8 +130,10 @@ def run_envlink(path: str, rows: str) -> dict[str, float]:
     out = attach(table, grid, name="sst", spatial="nearest-valid:25km", stat="mean", progress=False)
     wall = time.perf_counter() - t0
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # KiB -> MiB (Linux)
+    child = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0  # largest reader process
     flags = out["sst_flags"].str.len().gt(0).sum()
-    return {"seconds": wall, "peak_mib": peak, "values": int(out["sst"].notna().sum()), "flagged": int(flags)}
+    return {"seconds": wall, "peak_mib": peak, "child_peak_mib": child,
+            "values": int(out["sst"].notna().sum()), "flagged": int(flags)}
 
 
 def time_a(path: Path, rows: Path) -> dict[str, float]:
@@ -269,6 +271,7 @@ def main(argv: list[str] | None = None) -> int:
             ta, tb, td = _summ([x["seconds"] for x in a]), _summ(b), _summ(d)
             report[layout] = {
                 "a_envlink_s": ta, "a_peak_mib": max(x["peak_mib"] for x in a),
+                "a_reader_process_peak_mib": max(x["child_peak_mib"] for x in a),
                 "a_values": a[0]["values"], "a_flagged": a[0]["flagged"],
                 "b_numpy_s": tb, "c_sel_per_row_s": c, "d_stream_s": td,
                 "a_over_b": ta["median"] / tb["median"], "a_over_d": ta["median"] / td["median"],

@@ -56,6 +56,13 @@ def test_dhw_mmm_from_climatology_grid(dhw_grid):
     assert_allclose(out["dhw"], [19.0 / 7.0], rtol=1e-12)
 
 
+def test_dhw_mmm_climatology_not_reaching_the_site(dhw_grid):
+    # never the edge value of a climatology that does not cover the site (DESIGN.md §6.3)
+    clim = xr.DataArray([[hs.MMM, hs.MMM]], dims=("lat", "lon"), coords={"lat": [20.0], "lon": [0.0, 1.0]})
+    out = attach(table([0.5], [0.5], "2010-01-01", "2010-04-30"), dhw_grid, name="dhw", stat="dhw-max", mmm=clim)
+    assert np.isnan(out["dhw"][0]) and out["dhw_flags"][0].split(";")[0] == "no_mmm"
+
+
 def test_dhw_needs_daily_data():
     g = make_grid(lat=[0.5], lon=[0.5], periods=12, seed=1)
     with pytest.raises(InputError, match="needs a daily grid"):
