@@ -12,6 +12,7 @@ import datetime as _dt
 import html
 import json
 import os
+import re
 from collections import Counter
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -93,13 +94,17 @@ class _Raw(str):
     """Already-escaped HTML for a table cell."""
 
 
-def _flag_counts(series: pd.Series) -> Counter[str]:
+_NUMBER = re.compile(r"\d+(?:\.\d+)?")
+
+
+def _flag_counts(series: pd.Series, *, group_numbers: bool = True) -> Counter[str]:
+    """Rows per QA flag; flags that differ only by a number (``nearest_valid_12km``,
+    ``nearest_valid_19km``) count together as ``nearest_valid_Nkm``."""
     counts: Counter[str] = Counter()
     for cell in series.fillna("").astype(str):
-        for flag in cell.split(";"):
-            flag = flag.strip()
+        for flag in {f.strip() for f in cell.split(";")}:
             if flag:
-                counts[flag] += 1
+                counts[_NUMBER.sub("N", flag) if group_numbers else flag] += 1
     return counts
 
 
@@ -132,6 +137,7 @@ def _covariate_section(table: pd.DataFrame, name: str, units: str) -> str:
     )
     flags = _flag_counts(table.get(f"{name}_flags", pd.Series(dtype=str)))
     if flags:
+        out += _table(["QA flag", "rows"], sorted(flags.items(), key=lambda kv: (-kv[1], kv[0])))
         out += _figure(plots.flag_bars(flags, title=f"QA flags of {name}"),
                        f"How many rows carry each QA flag of {name}.")
     dist = pd.to_numeric(table.get(f"{name}_distance_km", pd.Series(dtype=float)), errors="coerce")
@@ -258,11 +264,17 @@ def _model_figures(
         fitted = fit.predict(used.reset_index(drop=True))["estimate"].to_numpy(float)
         resid, label = y - fitted, "raw residual"
         if hasattr(fit, "standardized_residuals"):
-            sr = np.asarray(fit.standardized_residuals(), dtype=float)
+            sr = fit.standardized_residuals()
+            if isinstance(sr, pd.DataFrame):  # one row per input row; dropped rows flagged
+                if "dropped" in sr.columns:
+                    sr = sr[~sr["dropped"].astype(bool)]
+                sr = sr["z"] if "z" in sr.columns else sr.iloc[:, 0]
+            sr = np.asarray(sr, dtype=float)
             if sr.shape == resid.shape:
                 resid, label = sr, "standardised residual"
         out += _figure(plots.residual_plot(fitted, resid, ylabel=label),
-                       "Residuals against fitted values; a funnel or curve suggests a missing term.")
+                       f"{label.capitalize()}s against fitted values; a funnel or a curve "
+                       "suggests a missing term or a wrong scale.")
     except Exception as exc:  # noqa: BLE001
         out += f"<p class='note'>No residual plot: {_e(exc)}.</p>"
     return out

@@ -183,8 +183,10 @@ def forest_plot(
     if pooled is not None and pooled_low is not None and pooled_high is not None:
         ax.fill([pooled_low, pooled, pooled_high, pooled], [-0.6, -0.2, -0.6, -1.0], color=_WARM)
         ax.axvline(pooled, color=_WARM, linewidth=0.8, linestyle="--")
-    ax.set_yticks(list(pos) + [-0.6])
-    ax.set_yticklabels([str(labels[i]) for i in order] + ["pooled"], fontsize=6)
+    has_pooled = pooled is not None and pooled_low is not None and pooled_high is not None
+    ax.set_yticks(list(pos) + ([-0.6] if has_pooled else []))
+    ax.set_yticklabels([str(labels[i]) for i in order] + (["pooled"] if has_pooled else []),
+                       fontsize=6)
     ax.set_xlabel(xlabel)
     title = "Effects with confidence intervals"
     if y.size > max_rows:

@@ -65,6 +65,7 @@ def test_user_strings_are_escaped() -> None:
 
 def test_sections_and_figures_present() -> None:
     t = _table()
+    t.loc[1, "sst_anom_flags"] = "nearest_valid_3km"
     page = render_report(table=t, fit=_fit(t), covariates=["sst_anom"], moderator="sst_anom",
                          field=_grid(), egger={"intercept": 0.4, "slope": 0.2, "p": 0.3},
                          windows_tried=3)
@@ -75,6 +76,9 @@ def test_sections_and_figures_present() -> None:
     assert page.count("data:image/png;base64,") == 7
     assert "3 covariate window(s)" in page
     assert "observational" in page
+    assert "Standardised residuals against fitted values" in page
+    # flags differing only by a distance are counted together
+    assert "nearest_valid_Nkm" in page
 
 
 def test_write_is_atomic_on_failure(tmp_path) -> None:
