@@ -15,6 +15,7 @@ installed; otherwise a blocked NumPy loop gives the same sums.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -62,9 +63,14 @@ def _n_stats(p: int) -> int:
     return 3 * p * p + 2 * p + 5
 
 
+@functools.lru_cache(maxsize=32)
+def _lower(p: int) -> tuple[np.ndarray, np.ndarray]:
+    return np.tril_indices(p, -1)
+
+
 def _unpack(vec: np.ndarray, p: int) -> Sums:
     pp = p * p
-    lo_r, lo_c = np.tril_indices(p, -1)
+    lo_r, lo_c = _lower(p)
     mats = []
     for j in range(3):
         m = vec[j * pp:(j + 1) * pp].reshape(p, p).copy()
