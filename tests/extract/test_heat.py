@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 import xarray as xr
 from numpy.testing import assert_allclose
@@ -119,3 +120,19 @@ def test_anomaly_against_monthly_climatology():
     exp0 = np.average(v[37:40] - clim[1:4], weights=days)
     exp1 = v[65] - clim[5]
     assert_allclose(out["a"], [exp0, exp1], rtol=1e-9)
+
+
+def test_anomaly_against_daily_climatology():
+    rng = np.random.default_rng(8)
+    dates = pd.date_range("2010-01-01", "2012-12-31", freq="D")
+    v = 26.0 + rng.normal(0, 1, dates.size)
+    g = daily_point_grid(v, start="2010-01-01")
+    out = attach(table([0.5], [0.5], "2012-02-27", "2012-03-02"), g, name="a", stat="anomaly", baseline="2010-2011")
+    # pandas: mean of the same calendar days (month, day) over 2010-2011; 29 Feb has none
+    s = pd.Series(v, index=dates)
+    base = s["2010":"2011"]
+    clim = base.groupby([base.index.month, base.index.day]).mean()
+    win = s["2012-02-27":"2012-03-02"]
+    anom = [x - clim.get((d.month, d.day), np.nan) for d, x in win.items()]
+    assert_allclose(out["a"], [np.nanmean(anom)], rtol=1e-12)
+    assert out["a_flags"][0] == "partial_coverage"  # 29 February has no baseline day
