@@ -2,7 +2,7 @@
 
 Cells are read by rectangular tiles aligned to the storage chunks (dask chunks, or
 the netCDF/HDF5 ``chunksizes`` encoding), and only tiles that hold a needed cell are
-read; every tile is read once, with all time steps (in time slabs of about 64 MiB),
+read; every tile is read once, with all time steps (in time slabs of about 32 MiB),
 then the needed cells are gathered from it with NumPy. Large lazy grids (more than
 128 MiB to read) are read by several processes, one tile each (as many as cores, or
 ``$ENVLINK_READ_WORKERS``); each returns only the gathered cells. This avoids per-site ``.sel`` loops and the
@@ -19,7 +19,7 @@ import xarray as xr
 
 __all__ = ["read_cells", "storage_chunks"]
 
-_TILE_BYTES = 64 * 2**20
+_TILE_BYTES = 32 * 2**20
 _PARALLEL_BYTES = 128 * 2**20
 
 
