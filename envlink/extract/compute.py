@@ -34,7 +34,7 @@ from envlink.geo import EARTH_RADIUS_KM, cell_edges
 
 __all__ = ["compute_values", "nearest_valid", "coverage"]
 
-_BLOCK_ELEMENTS = 4_000_000
+_BLOCK_ELEMENTS = 2_000_000
 _KM_PER_DEG = np.pi * EARTH_RADIUS_KM / 180.0
 
 
