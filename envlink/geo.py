@@ -201,8 +201,8 @@ def polygon_cell_overlaps(
         x1 = min(int(np.searchsorted(le, maxx, side="left")), le.size - 1)
         if x1 <= x0 or y1 <= y0:
             continue
-        iy, ix = np.meshgrid(np.arange(y0, y1), np.arange(x0, x1), indexing="ij")
-        iy, ix = iy.ravel(), ix.ravel()
+        gy, gx = np.meshgrid(np.arange(y0, y1), np.arange(x0, x1), indexing="ij")
+        iy, ix = gy.ravel(), gx.ravel()
         s, n = np.sin(np.radians(lat_e[iy])), np.sin(np.radians(lat_e[iy + 1]))
         w, e = np.radians(le[ix]), np.radians(le[ix + 1])
         boxes = shapely.box(w, s, e, n)

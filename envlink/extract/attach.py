@@ -190,7 +190,7 @@ def attach(
         "software": _versions(),
     }
     key = _cache.request_key(grid, table, options) if cache_dir is not None else None
-    cached = _cache.load(cache_dir, key, n) if key is not None else None
+    cached = _cache.load(cache_dir, key, n) if key is not None and cache_dir is not None else None
     if cached is not None:
         prov["cache"] = "hit"
         return _assemble(table, name, cached, prov)
@@ -228,7 +228,8 @@ def attach(
     flags.extend(srcs.row_flags)
     show = progress
     if sp_rule.kind == "nearest-valid":
-        X, srcs = nearest_valid(grid, geom, steps, spans, srcs, lat, lon, active, sp_rule.km, min_cov, flags, show)
+        km = float(sp_rule.km or 0.0)
+        X, srcs = nearest_valid(grid, geom, steps, spans, srcs, lat, lon, active, km, min_cov, flags, show)
         xrow = np.arange(srcs.cells.size)
     else:
         cells, xrow = np.unique(srcs.cells, return_inverse=True)
@@ -256,7 +257,7 @@ def attach(
         "distance_km": np.where(got, srcs.row_dist, np.nan), "coverage": np.where(active, cov, np.nan),
         "flags": flags.render().astype(str),
     }
-    if key is not None:
+    if key is not None and cache_dir is not None:
         _cache.save(cache_dir, key, arrays)
         prov["cache"] = "stored"
     return _assemble(table, name, arrays, prov)

@@ -14,6 +14,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
@@ -49,7 +50,7 @@ def _grid_fingerprint(grid: xr.DataArray) -> str | None:
     return h.hexdigest()
 
 
-def request_key(grid: xr.DataArray, table: pd.DataFrame, options: dict[str, object]) -> str | None:
+def request_key(grid: xr.DataArray, table: pd.DataFrame, options: Mapping[str, object]) -> str | None:
     """SHA-256 hex key of a request, or None when the grid cannot be identified."""
     fp = _grid_fingerprint(grid)
     if fp is None:
@@ -84,5 +85,5 @@ def save(cache_dir: str | os.PathLike[str], key: str, arrays: dict[str, np.ndarr
     flags) atomically under ``key``."""
     path = Path(cache_dir) / f"{key}.npz"
     with atomic_path(path) as tmp, open(tmp, "wb") as fh:
-        np.savez(fh, **{k: np.asarray(arrays[k]) for k in _FIELDS})
+        np.savez(fh, **{k: np.asarray(arrays[k]) for k in _FIELDS})  # type: ignore[arg-type]
     return path

@@ -18,7 +18,7 @@ import xarray as xr
 from envlink.errors import InputError
 from envlink.extract.flags import RowFlags
 from envlink.extract.options import StatSpec
-from envlink.extract.reader import read_cells
+from envlink.extract.reader import read_cells, read_cells_near_gaps
 from envlink.extract.sources import Sources
 from envlink.extract.spatial import GridGeometry
 from envlink.extract.stats import (
@@ -195,8 +195,9 @@ def nearest_valid(
     any_valid = np.full(geom.shape, -1, dtype=np.int8)
     halo = _halo(geom, lat[active], km)
     with _progress(show, lat.size, srcs.cells.size, "attach: reading cells") as bar:
-        got = read_cells(grid, srcs.cells, progress=bar.update, any_valid=any_valid, halo=halo)
-    X, spare_cells, spare_X = got if halo is not None else (got, np.array([], dtype=np.int64), None)
+        X, spare_cells, spare_X = read_cells_near_gaps(
+            grid, srcs.cells, progress=bar.update, any_valid=any_valid, halo=halo
+        )
     cells = srcs.cells.copy()
     row_x = srcs.row_src.copy()
     cov0 = coverage(X, steps, row_x, spans)

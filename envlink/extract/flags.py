@@ -42,7 +42,8 @@ class RowFlags:
                 if c == code or (prefix and c.startswith(code)):
                     mask[idx] = True
             else:
-                hit = np.array([str(x) == code or (prefix and str(x).startswith(code)) for x in c], dtype=bool)
+                texts = [str(x) for x in np.asarray(c, dtype=object)]
+                hit = np.asarray([t == code or (prefix and t.startswith(code)) for t in texts], dtype=np.bool_)
                 mask[idx[hit]] = True
         return mask
 

@@ -17,7 +17,7 @@ from collections.abc import Callable
 import numpy as np
 import xarray as xr
 
-__all__ = ["read_cells", "storage_chunks"]
+__all__ = ["read_cells", "read_cells_near_gaps", "storage_chunks"]
 
 _TILE_BYTES = 32 * 2**20
 _PARALLEL_BYTES = 128 * 2**20
@@ -75,15 +75,17 @@ def _read_rect(
     step_bytes = rect.shape[1] * rect.shape[2] * np.dtype(dtype).itemsize
     # time slabs (aligned to the time chunks) keep memory bounded on time-chunked files
     slab = max(ct, (_TILE_BYTES // max(step_bytes, 1)) // ct * ct)
-    out = np.empty((ly.size, nt), dtype=dtype)
+    out: np.ndarray = np.empty((ly.size, nt), dtype=dtype)
     seen = np.zeros(rect.shape[1:], dtype=bool)
-    ctx = contextlib.nullcontext()
+    ctx: contextlib.AbstractContextManager[object] = contextlib.nullcontext()
     if rect.chunks is not None and multiprocessing_child():
         import dask
 
         ctx = dask.config.set(scheduler="synchronous")
     ey = ex = np.array([], dtype=np.int64)
-    extra = np.empty((0, nt), dtype=dtype)
+    extra: np.ndarray = np.empty((0, nt), dtype=dtype)
+    block: np.ndarray = np.empty((0, 0, 0), dtype=dtype)
+    finite: np.ndarray = np.empty((0, 0, 0), dtype=bool)
     with ctx:
         for t0 in range(0, nt, slab):
             block = np.asarray(rect.isel(time=slice(t0, t0 + slab)).values, dtype=dtype)
@@ -115,8 +117,27 @@ def read_cells(
     *,
     progress: Callable[[int], object] | None = None,
     any_valid: np.ndarray | None = None,
+) -> np.ndarray:
+    """Series of the given flat cells, shape ``(len(flat), time)`` (see :func:`read_cells_near_gaps`).
+
+    Examples
+    --------
+    >>> from envlink.testing import make_grid
+    >>> g = make_grid(np.arange(8.0).reshape(2, 2, 2), lat=[0, 1], lon=[0, 1])
+    >>> read_cells(g, np.array([3, 0])).tolist()
+    [[3.0, 7.0], [0.0, 4.0]]
+    """
+    return read_cells_near_gaps(grid, flat, progress=progress, any_valid=any_valid, halo=None)[0]
+
+
+def read_cells_near_gaps(
+    grid: xr.DataArray,
+    flat: np.ndarray,
+    *,
+    progress: Callable[[int], object] | None = None,
+    any_valid: np.ndarray | None = None,
     halo: tuple[int, int] | None = None,
-) -> np.ndarray | tuple[np.ndarray, np.ndarray, np.ndarray]:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Series of the given flat cells, shape ``(len(flat), time)``, float32 or float64.
 
     Parameters
@@ -132,23 +153,23 @@ def read_cells(
         some step" / "never has data") for every cell of every rectangle read (used
         to skip empty candidates of ``nearest-valid``).
     halo : (int, int), optional
-        Also return, as ``(series, extra_cells, extra_series)``, the cells with data
-        within this many rows / columns of a cell lacking data at some step, from
-        the rectangles already in memory (``nearest-valid`` candidates).
+        Also gather the cells with data within this many rows / columns of a cell
+        lacking data at some step, from the rectangles already in memory
+        (``nearest-valid`` candidates).
 
-    Examples
-    --------
-    >>> from envlink.testing import make_grid
-    >>> g = make_grid(np.arange(8.0).reshape(2, 2, 2), lat=[0, 1], lon=[0, 1])
-    >>> read_cells(g, np.array([3, 0])).tolist()
-    [[3.0, 7.0], [0.0, 4.0]]
+    Returns
+    -------
+    series : ndarray (len(flat), time)
+    extra_cells : ndarray of int
+        Flat indices of the cells gathered through ``halo`` (empty without it).
+    extra_series : ndarray (len(extra_cells), time)
     """
     flat = np.asarray(flat, dtype=np.int64)
     nt, ny, nx = grid.shape
     dtype = np.float64 if grid.dtype == np.float64 else np.float32
     out = np.empty((flat.size, nt), dtype=dtype)
     if flat.size == 0:
-        return out
+        return out, np.array([], dtype=np.int64), np.empty((0, nt), dtype=dtype)
     iy, ix = np.divmod(flat, nx)
     ty, tx = _tiles(ny, nx, nt, np.dtype(dtype).itemsize, storage_chunks(grid))
     tile = (iy // ty) * ((nx + tx - 1) // tx) + ix // tx
@@ -182,9 +203,7 @@ def read_cells(
         if progress is not None:
             progress(sel.size)
 
-    def done() -> np.ndarray | tuple[np.ndarray, np.ndarray, np.ndarray]:
-        if halo is None:
-            return out
+    def done() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if not extra_cells:
             return out, np.array([], dtype=np.int64), np.empty((0, nt), dtype=dtype)
         return out, np.concatenate(extra_cells), np.concatenate(extra_series)

@@ -88,8 +88,10 @@ def point_sources(
         row_src = np.where(site >= 0, src_of_site[np.maximum(site, 0)], -1)
         return Sources(ptr, cc.ravel(), ww.ravel(), row_src, row_cell, row_dist, flags)
     # buffer: cells whose centres are within km, weighted by spherical area
-    bptr, bcells, bdist = geom.within(ulat_q, ulon_q, float(km))
-    ptr, cells, weights = [0], [], []
+    bptr, bcells, bdist = geom.within(ulat_q, ulon_q, float(km or 0.0))
+    bptr_l: list[int] = [0]
+    cell_l: list[np.ndarray] = []
+    weight_l: list[np.ndarray] = []
     src_of_site = np.full(ulat.size, -1)
     small = np.zeros(ulat.size, dtype=bool)
     first = np.full(ulat.size, -1)
@@ -102,16 +104,18 @@ def point_sources(
                 continue
             c, small[s] = np.array([near[s]]), True
         first[s] = c[0]
-        src_of_site[s] = len(ptr) - 1
-        cells.append(c)
-        weights.append(geom.cell_areas(c))
-        ptr.append(ptr[-1] + c.size)
+        src_of_site[s] = len(bptr_l) - 1
+        cell_l.append(c)
+        weight_l.append(geom.cell_areas(c))
+        bptr_l.append(bptr_l[-1] + c.size)
     row_src = np.where(site >= 0, src_of_site[np.maximum(site, 0)], -1)
     row_cell = np.where(site >= 0, first[np.maximum(site, 0)], -1)
     la, lo = geom.cell_latlon(row_cell)
     row_dist = great_circle_km(lat, lon, la, lo)
     flags.add((site >= 0) & small[np.maximum(site, 0)], "buffer_smaller_than_cell")
-    return Sources(np.asarray(ptr), _cat(cells, np.int64), _cat(weights, np.float64), row_src, row_cell, row_dist, flags)
+    return Sources(
+        np.asarray(bptr_l), _cat(cell_l, np.int64), _cat(weight_l, np.float64), row_src, row_cell, row_dist, flags
+    )
 
 
 def area_sources(

@@ -78,8 +78,8 @@ class GridGeometry:
         self._tree = None
         if self.dims == ("lat", "lon"):
             self.kind = "regular"
-            self.lat = np.asarray(lat.values, dtype=np.float64)
-            self.lon = np.asarray(lon.values, dtype=np.float64)
+            self.lat = np.asarray(grid["lat"].values, dtype=np.float64)
+            self.lon = np.asarray(grid["lon"].values, dtype=np.float64)
             self.lat_edges = cell_edges(self.lat)
             self.lon_edges = cell_edges(self.lon)
             span = self.lon_edges[-1] - self.lon_edges[0]

@@ -204,7 +204,7 @@ def window_stat(
             if kind == "mean":
                 val = _wsum(v0, b, src, sp, e0, e1) / W
             elif kind == "above":
-                val = _wsum((v0 > threshold) & valid, b, src, sp, e0, e1) / W
+                val = _wsum((v0 > float(threshold or 0.0)) & valid, b, src, sp, e0, e1) / W
             else:
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore", RuntimeWarning)
@@ -221,7 +221,7 @@ def window_stat(
             val = _wsum(v0, np.ones_like(length), src, sp, frac0, frac1)
             val = np.where(cov > 0, val, np.nan)
         elif kind == "degree-days":
-            excess = np.where(valid, np.maximum(S - threshold, 0.0), 0.0)
+            excess = np.where(valid, np.maximum(S - float(threshold or 0.0), 0.0), 0.0)
             if weights == "duration":
                 val = _wsum(excess, length, src, sp, sp.ov0, sp.ov1)
             else:
@@ -232,7 +232,8 @@ def window_stat(
         elif kind == "max":
             val = _gather(S, src, sp, lambda a: np.nanmax(a, axis=1))
         elif kind == "quantile":
-            val = _gather(S, src, sp, lambda a: np.nanquantile(a, q, axis=1))
+            qq = float(q or 0.0)
+            val = _gather(S, src, sp, lambda a: np.nanquantile(a, qq, axis=1))
         else:
             raise ValueError(f"unknown statistic {kind!r}")
     cov = np.where(sp.has, np.nan_to_num(cov), 0.0)

@@ -59,7 +59,9 @@ def parse_iso_dates(values: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarr
     return y, m, d, ok
 
 
-def _add_months(y: np.ndarray, m: np.ndarray, d: np.ndarray, k: np.ndarray | int, calendar: str):
+def _add_months(
+    y: np.ndarray, m: np.ndarray, d: np.ndarray, k: np.ndarray | int, calendar: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     last = d >= month_lengths(y, m, calendar)
     total = y * 12 + (m - 1) + k
     y2, m2 = total // 12, total % 12 + 1
@@ -103,7 +105,8 @@ def row_windows(
             ws, we = s - spec.n, e - spec.n + 1
         else:
             k = -spec.n * (12 if spec.unit == "Y" else 1)
-            ws = ymd_to_daynum(*_add_months(ys, ms, ds, k, calendar), calendar)[0]
+            ys2, ms2, ds2 = _add_months(ys, ms, ds, k, calendar)
+            ws = ymd_to_daynum(ys2, ms2, ds2, calendar)[0]
             ye2, me2, de2 = _add_months(ye, me, np.minimum(de, month_lengths(ye, me, calendar)), k, calendar)
             we = ymd_to_daynum(ye2, me2, de2, calendar)[0] + 1
     elif spec.kind == "before-start":
