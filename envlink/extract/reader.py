@@ -93,15 +93,31 @@ def _read_rect(
             finite = np.isfinite(block)
             seen |= finite.any(axis=0)
         if halo is not None and slab >= nt:
-            from scipy.ndimage import maximum_filter
-
-            gaps = ~finite.all(axis=0)
-            near_gap = maximum_filter(gaps, size=(2 * halo[0] + 1, 2 * halo[1] + 1), mode="constant", cval=False)
+            near_gap = _dilate(~finite.all(axis=0), halo[0], halo[1])
             want = near_gap & seen
             want[ly, lx] = False
             ey, ex = np.nonzero(want)
             extra = np.ascontiguousarray(block[:, ey, ex].T)
     return out, seen, np.stack([ey, ex]) if ey.size else np.zeros((2, 0), dtype=np.int64), extra
+
+
+def _dilate(mask: np.ndarray, ky: int, kx: int) -> np.ndarray:
+    """Cells within (ky, kx) rows / columns of a True cell (box dilation, integral image).
+
+    Examples
+    --------
+    >>> _dilate(np.array([[False, False, False], [False, True, False]]), 0, 1).astype(int).tolist()
+    [[0, 0, 0], [1, 1, 1]]
+    """
+    ny, nx = mask.shape
+    ii = np.zeros((ny + 1, nx + 1), dtype=np.int64)
+    np.cumsum(np.cumsum(mask, axis=0), axis=1, out=ii[1:, 1:])
+    y0 = np.clip(np.arange(ny) - ky, 0, ny)
+    y1 = np.clip(np.arange(ny) + ky + 1, 0, ny)
+    x0 = np.clip(np.arange(nx) - kx, 0, nx)
+    x1 = np.clip(np.arange(nx) + kx + 1, 0, nx)
+    count = ii[y1][:, x1] - ii[y0][:, x1] - ii[y1][:, x0] + ii[y0][:, x0]
+    return count > 0
 
 
 def multiprocessing_child() -> bool:
@@ -214,6 +230,13 @@ def read_cells_near_gaps(
         return done()
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    if grid.chunks is not None:
+        # dask imports its scheduler machinery on first use; do it once here, so forked
+        # readers share it instead of each importing it again
+        import dask.base
+
+        dask.base.get_scheduler()
 
     ctx = multiprocessing.get_context("fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
