@@ -278,13 +278,48 @@ def polygon_cells(geom: GridGeometry, wkt: str) -> tuple[np.ndarray, np.ndarray,
     """
     import shapely
 
-    if geom.kind != "regular":
-        raise InputError("The 'polygon' spatial rule needs a regular lat/lon grid; use 'buffer:Rkm' on this grid.")
+    if geom.kind == "curvilinear":
+        raise InputError("The 'polygon' spatial rule needs a regular lat/lon or a projected grid; use 'buffer:Rkm' on this curvilinear grid.")
     try:
         poly = shapely.from_wkt(wkt)
     except shapely.errors.GEOSException as exc:
         raise InputError(f"Cannot read the site polygon {wkt[:60]!r}: {exc}") from exc
+    if geom.kind == "projected":
+        return _projected_polygon_cells(geom, poly)
     iy, ix, area, frac = polygon_cell_overlaps(poly, geom.lat_edges, geom.lon_edges, wrap=geom.is_global)
     flat = iy * geom.shape[1] + ix
     small = bool(area.size and area.sum() < geom.cell_areas(flat).max())
     return flat.astype(np.int64), area, small
+
+
+def _projected_polygon_cells(geom: GridGeometry, poly) -> tuple[np.ndarray, np.ndarray, bool]:  # noqa: ANN001
+    """Polygon overlaps on a projected grid: areas in the grid's plane (exact on an
+    equal-area projection), reported in km² when the CRS unit is the metre."""
+    import shapely
+
+    xe, ye = geom.x_edges, geom.y_edges
+    step = float(min(np.min(np.diff(xe)), np.min(np.diff(ye))))
+    dense = shapely.segmentize(poly, max_segment_length=0.01)
+
+    def fwd(xy: np.ndarray) -> np.ndarray:
+        x, y = geom._fwd.transform(xy[:, 0], xy[:, 1])
+        return np.column_stack([x, y])
+
+    p = shapely.segmentize(shapely.transform(dense, fwd), max_segment_length=step / 4.0)
+    minx, miny, maxx, maxy = p.bounds
+    x0 = max(int(np.searchsorted(xe, minx, side="right")) - 1, 0)
+    x1 = min(int(np.searchsorted(xe, maxx, side="left")), xe.size - 1)
+    y0 = max(int(np.searchsorted(ye, miny, side="right")) - 1, 0)
+    y1 = min(int(np.searchsorted(ye, maxy, side="left")), ye.size - 1)
+    if x1 <= x0 or y1 <= y0:
+        return np.array([], dtype=np.int64), np.array([]), False
+    gy, gx = np.meshgrid(np.arange(y0, y1), np.arange(x0, x1), indexing="ij")
+    jy, jx = gy.ravel(), gx.ravel()
+    boxes = shapely.box(xe[jx], ye[jy], xe[jx + 1], ye[jy + 1])
+    inter = shapely.area(shapely.intersection(boxes, p))
+    keep = inter > 0
+    cell = (xe[jx + 1] - xe[jx]) * (ye[jy + 1] - ye[jy])
+    row = (geom.shape[0] - 1 - jy) if geom._ydesc else jy
+    flat = row[keep] * geom.shape[1] + jx[keep]
+    small = bool(keep.any() and inter[keep].sum() < cell[keep].max())
+    return flat.astype(np.int64), inter[keep] / 1e6, small

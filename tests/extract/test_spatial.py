@@ -201,3 +201,25 @@ def test_projected_grid_cell_containing_site():
     clon, clat = inv.transform(x[ix], y[iy])
     assert_allclose(out["v_distance_km"][:2], great_circle_km(slat[:2], slon[:2], clat, clon), rtol=1e-9)
     assert out["v_flags"][2] == "outside_grid"
+
+
+def test_polygon_on_projected_equal_area_grid():
+    # LAEA (equal area): weights are the polygon's area in each 10 km cell, checked
+    # against shapely on the same projection of the densified lon/lat polygon (pyproj)
+    crs = pyproj.CRS.from_proj4("+proj=laea +lat_0=50 +lon_0=10 +ellps=WGS84")
+    x = np.arange(-95_000.0, 100_000.0, 10_000.0)
+    y = np.arange(95_000.0, -100_000.0, -10_000.0)
+    vals = np.random.default_rng(12).normal(10, 2, (1, y.size, x.size))
+    g = projected(vals, x, y, crs.to_wkt())
+    poly = Polygon([(9.8, 49.8), (10.4, 49.85), (10.3, 50.3), (9.9, 50.2)])
+    out = attach(table([50.0], [10.0], "2000-01-01", "2000-01-31", site_wkt=[poly.wkt]), g, name="v", spatial="polygon")
+    fwd = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+    p = shapely.transform(shapely.segmentize(poly, 0.001), lambda xy: np.column_stack(fwd.transform(xy[:, 0], xy[:, 1])))
+    num = den = 0.0
+    for j, yc in enumerate(y):
+        for i, xc in enumerate(x):
+            a = p.intersection(shapely.box(xc - 5000, yc - 5000, xc + 5000, yc + 5000)).area
+            num += a * vals[0, j, i]
+            den += a
+    assert_allclose(out["v"][0], num / den, rtol=1e-5)
+    assert out["v_flags"][0] == ""
