@@ -93,7 +93,7 @@ def _read_rect(
             finite = np.isfinite(block)
             seen |= finite.any(axis=0)
         if halo is not None and slab >= nt:
-            near_gap = _dilate(~finite.all(axis=0), halo[0], halo[1])
+            near_gap = _dilate(np.asarray(~finite.all(axis=0)), halo[0], halo[1])
             want = near_gap & seen
             want[ly, lx] = False
             ey, ex = np.nonzero(want)
