@@ -6,16 +6,30 @@ extensions and atomic writes are handled once.
 
 from __future__ import annotations
 
+import csv
+import datetime as _dt
+import io
+import math
+import numbers
 import os
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 
 from envlink._util import atomic_path, did_you_mean
 from envlink.errors import InputError
 
-__all__ = ["read_table", "write_table", "require_columns", "TABLE_SUFFIXES"]
+__all__ = [
+    "read_table",
+    "read_table_as_written",
+    "write_table",
+    "check_output_path",
+    "require_columns",
+    "cell_text",
+    "TABLE_SUFFIXES",
+]
 
 TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".parquet", ".pq", ".xlsx", ".xls")
 
@@ -30,6 +44,71 @@ def _decode(raw: bytes, path: Path) -> str:
         return raw.decode("latin-1")
 
 
+def cell_text(value: Any) -> str:
+    """One cell as text: ``""`` for an empty cell, whole floats without ``.0``.
+
+    Typed tables (Parquet, Excel) store ``2001`` in a float column as ``2001.0`` and
+    dates as timestamps; this gives the text a person would have written, so text
+    readers (dates, coordinates) see ``"2001"`` and ``"2004-02-15"``.
+
+    Examples
+    --------
+    >>> [cell_text(v) for v in (None, float("nan"), 2001.0, -8.25, 7, "Jan 2002")]
+    ['', '', '2001', '-8.25', '7', 'Jan 2002']
+    >>> cell_text(pd.Timestamp("2004-02-15"))
+    '2004-02-15'
+    """
+    if value is None or value is pd.NaT:
+        return ""
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool):
+        return str(value)
+    if isinstance(value, numbers.Integral):
+        return str(int(value))
+    if isinstance(value, numbers.Real):
+        v = float(value)
+        if math.isnan(v):
+            return ""
+        if v.is_integer() and abs(v) < 1e15:
+            return str(int(v))
+        return repr(v)
+    if isinstance(value, _dt.datetime):
+        if (value.hour, value.minute, value.second, value.microsecond) == (0, 0, 0, 0):
+            return value.date().isoformat()
+        return value.isoformat()
+    if isinstance(value, _dt.date):
+        return value.isoformat()
+    try:
+        if pd.isna(value):
+            return ""
+    except (TypeError, ValueError):
+        pass
+    return str(value)
+
+
+def _typed_as_text(df: pd.DataFrame) -> pd.DataFrame:
+    return pd.DataFrame(
+        {c: pd.array([cell_text(v) for v in df[c].tolist()], dtype="string") for c in df.columns},
+        index=df.index,
+        columns=df.columns,
+    )
+
+
+def _check_header(names: Sequence[object], p: Path) -> None:
+    seen: dict[str, int] = {}
+    for i, name in enumerate(names, start=1):
+        key = cell_text(name).strip()
+        if not key:  # blank header cells get distinct 'Unnamed: N' names from pandas
+            continue
+        if key in seen:
+            raise InputError(
+                f"Cannot read table {str(p)!r}: columns {seen[key]} and {i} are both named "
+                f"{key!r}; every column needs its own name, so rename one of them."
+            )
+        seen[key] = i
+
+
 def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.DataFrame:
     """Read a CSV / TSV / Parquet / Excel table.
 
@@ -40,7 +119,8 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
         of ``.csv`` files is sniffed among ``,``, ``;`` and tab.
     as_text : bool, default False
         Read every cell as text, exactly as written (blank cells become ``""``), so
-        that a stage can keep the user's columns unchanged.
+        that a stage can keep the user's columns unchanged. Cells of typed files
+        (Parquet, Excel) become text through :func:`cell_text`.
 
     Returns
     -------
@@ -49,8 +129,8 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
     Raises
     ------
     InputError
-        The file is missing, unreadable, or of an unknown type; the message names
-        the path and the reason.
+        The file is missing, empty, unreadable, of an unknown type, or has two
+        columns of the same name; the message names the path and the reason.
 
     Examples
     --------
@@ -69,18 +149,24 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
     try:
         if suffix in (".parquet", ".pq"):
             df = pd.read_parquet(p)
-            return df.astype(str).where(df.notna(), "") if as_text else df
+            _check_header(list(df.columns), p)
+            return _typed_as_text(df) if as_text else df
         if suffix in (".xlsx", ".xls"):
-            df = pd.read_excel(p, dtype=str if as_text else None)
-            return df.fillna("") if as_text else df
+            header = pd.read_excel(p, header=None, nrows=1)
+            _check_header([] if header.empty else header.iloc[0].tolist(), p)
+            df = pd.read_excel(p)
+            return _typed_as_text(df) if as_text else df
         if suffix not in (".csv", ".tsv", ".txt"):
             raise InputError(
                 f"Cannot read table {str(p)!r}: unknown extension {suffix!r}; "
                 f"expected one of {', '.join(TABLE_SUFFIXES)}."
             )
-        import io
-
         text = _decode(p.read_bytes(), p)
+        if not text.strip():
+            raise InputError(
+                f"Cannot read table {str(p)!r}: the file is empty; expected a header row "
+                "with the column names, then one row per line."
+            )
         first = text.split("\n", 1)[0]
         if suffix == ".tsv" or "\t" in first:
             sep = "\t"
@@ -88,6 +174,7 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
             sep = ";"
         else:
             sep = ","
+        _check_header(next(csv.reader([first.rstrip("\r")], delimiter=sep), []), p)
         kwargs: dict[str, object] = {"sep": sep}
         if as_text:
             kwargs.update(dtype=str, keep_default_na=False, na_filter=False)
@@ -96,6 +183,66 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
         raise
     except (OSError, ValueError, ImportError, pd.errors.ParserError) as exc:
         raise InputError(f"Cannot read table {str(p)!r}: {exc}") from exc
+
+
+def read_table_as_written(path: str | os.PathLike[str]) -> pd.DataFrame:
+    """Read a table keeping what the user wrote: text cells of CSV, typed cells of Parquet / Excel.
+
+    CSV / TSV cells are read as text, exactly as written (see :func:`read_table`
+    with ``as_text=True``); Parquet and Excel columns keep their stored types, so a
+    table written back out has the same column types as the input. Stages that read
+    text from cells (``locate``) turn typed cells into text with :func:`cell_text`.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "t.csv"
+    >>> _ = p.write_text("year,n\\n2001,007\\n")
+    >>> read_table_as_written(p).to_dict("records")
+    [{'year': '2001', 'n': '007'}]
+    """
+    suffix = Path(path).suffix.lower()
+    return read_table(path, as_text=suffix in (".csv", ".tsv", ".txt"))
+
+
+def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> Path:
+    """Check, before any work, that a table can be written at ``path``.
+
+    Raises :class:`InputError` for an unknown extension, a path that is a folder,
+    or an existing file without ``force``.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> check_output_path(d)
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: Cannot write ... it is a folder; give a file name inside it, e.g. ....csv'.
+    """
+    p = Path(path)
+    if p.is_dir():
+        raise InputError(
+            f"Cannot write {str(p)!r}: it is a folder; give a file name inside it, "
+            f"e.g. {str(p / 'table.csv')!r}."
+        )
+    if p.suffix.lower() not in _WRITABLE:
+        raise InputError(
+            f"Cannot write {str(p)!r}: unknown extension {p.suffix!r}; "
+            "expected .csv, .tsv, .parquet or .xlsx."
+        )
+    if p.exists() and not force:
+        raise InputError(f"{str(p)!r} exists; pass --force to overwrite it.")
+    return p
+
+
+def _os_reason(exc: OSError, p: Path) -> str:
+    """An OSError in words, without the temporary file's name."""
+    reason = exc.strerror or str(exc)
+    return f"cannot create a file in {str(p.parent) or '.'!r} ({reason})"
+
+
+_WRITABLE = (".csv", ".tsv", ".parquet", ".pq", ".xlsx")
 
 
 def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool = True) -> Path:
@@ -114,15 +261,8 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
     pathlib.Path
         The path written.
     """
-    p = Path(path)
+    p = check_output_path(path, force=force)
     suffix = p.suffix.lower()
-    if suffix not in (".csv", ".tsv", ".parquet", ".pq", ".xlsx"):
-        raise InputError(
-            f"Cannot write table {str(p)!r}: unknown extension {suffix!r}; "
-            "expected .csv, .tsv, .parquet or .xlsx."
-        )
-    if p.exists() and not force:
-        raise InputError(f"{str(p)!r} exists; pass --force to overwrite it.")
     try:
         with atomic_path(p) as tmp:
             if suffix == ".csv":
@@ -133,7 +273,9 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
                 df.to_parquet(tmp, index=False)
             else:
                 df.to_excel(tmp, index=False)
-    except (OSError, ImportError) as exc:
+    except OSError as exc:
+        raise InputError(f"Cannot write table {str(p)!r}: {_os_reason(exc, p)}.") from exc
+    except ImportError as exc:
         raise InputError(f"Cannot write table {str(p)!r}: {exc}") from exc
     return p
 

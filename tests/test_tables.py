@@ -6,7 +6,13 @@ import pandas as pd
 import pytest
 
 from envlink.errors import InputError
-from envlink.tables import read_table, require_columns, write_table
+from envlink.tables import (
+    cell_text,
+    read_table,
+    read_table_as_written,
+    require_columns,
+    write_table,
+)
 
 
 @pytest.mark.parametrize(
@@ -54,3 +60,73 @@ def test_write_refuses_overwrite_without_force(tmp_path) -> None:
     with pytest.raises(InputError, match="--force"):
         write_table(pd.DataFrame({"a": [2]}), p, force=False)
     assert pd.read_csv(p)["a"].tolist() == [1]
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".xlsx"])
+def test_duplicate_column_names_are_an_error_not_renamed(tmp_path, suffix) -> None:
+    # pandas would silently rename the second 'lat' to 'lat.1', changing a user column.
+    p = tmp_path / f"t{suffix}"
+    if suffix == ".csv":
+        p.write_text("lat,lon,lat\n1,2,3\n")
+    else:
+        pd.DataFrame([[1, 2, 3]], columns=["lat", "lon", "lat"]).to_excel(p, index=False)
+    with pytest.raises(InputError, match=r"columns 1 and 3 are both named 'lat'.*rename one"):
+        read_table(p, as_text=True)
+
+
+def test_blank_header_cells_are_not_duplicates(tmp_path) -> None:
+    p = tmp_path / "t.csv"
+    p.write_text("a,,\n1,,\n")
+    assert len(read_table(p, as_text=True).columns) == 3
+
+
+def test_empty_file_says_empty(tmp_path) -> None:
+    p = tmp_path / "t.csv"
+    p.write_text("\n")
+    with pytest.raises(InputError, match=r"the file is empty; expected a header row"):
+        read_table(p)
+
+
+def test_parquet_as_text_writes_whole_floats_without_decimals(tmp_path) -> None:
+    # A year column stored as float64 (NaN forces float) must read as '2001', not '2001.0'.
+    p = tmp_path / "t.parquet"
+    pd.DataFrame({"year": [2001.0, float("nan")], "lat": [-8.25, 1.0],
+                  "when": [pd.Timestamp("2004-02-15"), pd.Timestamp("2004-02-16 12:00")]}).to_parquet(p)
+    df = read_table(p, as_text=True)
+    assert df["year"].tolist() == ["2001", ""]
+    assert df["lat"].tolist() == ["-8.25", "1"]
+    assert df["when"].tolist() == ["2004-02-15", "2004-02-16T12:00:00"]
+
+
+def test_read_table_as_written_keeps_parquet_types(tmp_path) -> None:
+    p = tmp_path / "t.parquet"
+    pd.DataFrame({"n": [1, 2], "x": [0.5, 1.5]}).to_parquet(p)
+    df = read_table_as_written(p)
+    assert str(df["n"].dtype) == "int64" and str(df["x"].dtype) == "float64"
+    c = tmp_path / "t.csv"
+    c.write_text("n\n007\n")
+    assert read_table_as_written(c)["n"].tolist() == ["007"]
+
+
+def test_write_to_a_folder_names_it(tmp_path) -> None:
+    (tmp_path / "out.csv").mkdir()
+    with pytest.raises(InputError, match=r"it is a folder; give a file name inside it"):
+        write_table(pd.DataFrame({"a": [1]}), tmp_path / "out.csv")
+
+
+def test_write_failure_hides_temporary_name(tmp_path, monkeypatch) -> None:
+    import envlink.tables as tables
+
+    def refuse(*args, **kwargs):
+        raise PermissionError(13, "Permission denied", str(tmp_path / ".o.csv.x.part"))
+
+    monkeypatch.setattr(tables.pd.DataFrame, "to_csv", refuse)
+    with pytest.raises(InputError) as info:
+        write_table(pd.DataFrame({"a": [1]}), tmp_path / "o.csv")
+    msg = str(info.value)
+    assert "cannot create a file in" in msg and "Permission denied" in msg and ".part" not in msg
+
+
+def test_cell_text_forms() -> None:
+    assert [cell_text(v) for v in (None, pd.NA, pd.NaT, 3, 2.0, 1e20, -0.125, True)] == [
+        "", "", "", "3", "2", "1e+20", "-0.125", "True"]
