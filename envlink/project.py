@@ -293,7 +293,7 @@ def run_project(
     """
     import envlink
     from envlink.export import export_table
-    from envlink.tables import read_table
+    from envlink.tables import read_table_as_written
 
     if not isinstance(project, Project):
         project = load_project(project)
@@ -311,7 +311,7 @@ def run_project(
                    + bool(targets.get("report")), progress)  # fmt: skip
     check_files(project)
     try:
-        table = read_table(project.studies, as_text=True)
+        table = read_table_as_written(project.studies)
         input_columns = [str(c) for c in table.columns]
         check_columns(project, table)
         steps.done("read")

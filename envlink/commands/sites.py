@@ -13,8 +13,6 @@ from envlink.errors import InputError
 
 __all__ = ["register", "run", "add_locate_arguments", "locate_kwargs", "parse_season_months", "summary"]
 
-_WRITABLE = (".csv", ".tsv", ".parquet", ".pq", ".xlsx")
-
 DESCRIPTION = """\
 Read a table of compiled studies and add validated site coordinates and sampling
 periods with QA flags: site_lat, site_lon, site_precision_km, site_wkt,
@@ -152,6 +150,19 @@ def locate_kwargs(args: argparse.Namespace) -> dict[str, Any]:
         raise InputError(f"--fuzzy-threshold must be a score from 0 to 100; got {args.fuzzy_threshold:g}.")
     if args.fuzzy_margin < 0:
         raise InputError(f"--fuzzy-margin must be zero or more points; got {args.fuzzy_margin:g}.")
+    if bool(args.lat) != bool(args.lon):
+        given, other = ("--lat", "--lon") if args.lat else ("--lon", "--lat")
+        raise InputError(f"{given} needs {other} COL too: latitude and longitude columns go together.")
+    if args.period and (args.start or args.end):
+        raise InputError("Give either --period COL (the period in one cell) or --start COL --end COL, not both.")
+    if bool(args.start) != bool(args.end):
+        given, other = ("--start", "--end") if args.start else ("--end", "--start")
+        raise InputError(f"{given} needs {other} COL too: the period's start and end columns go together.")
+    if not any((args.lat, args.coords, args.site, args.period, args.start)):
+        raise InputError(
+            "No column to read: give --lat COL --lon COL, --coords COL or --site COL --gazetteer FILE "
+            "for the places, and --period COL or --start COL --end COL for the dates."
+        )
     if args.site and not args.gazetteer:
         raise InputError("--site needs --gazetteer FILE, the table of named sites to look the names up in.")
     if args.gazetteer and not args.site:
@@ -170,17 +181,11 @@ def locate_kwargs(args: argparse.Namespace) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink sites``; returns the exit code."""
     from envlink.locate.sites import locate
-    from envlink.tables import read_table, write_table
+    from envlink.tables import check_output_path, read_table_as_written, write_table
 
-    out = Path(args.output)
-    if out.suffix.lower() not in _WRITABLE:
-        raise InputError(
-            f"Cannot write {str(out)!r}: unknown extension {out.suffix!r}; expected .csv, .tsv, .parquet or .xlsx."
-        )
-    if out.exists() and not args.force:
-        raise InputError(f"{str(out)!r} exists; pass --force to overwrite it.")
+    out = check_output_path(args.output, force=args.force)
     options = locate_kwargs(args)
-    table = read_table(args.table, as_text=True)
+    table = read_table_as_written(args.table)
     located = locate(table, **options)
     write_table(located, out, force=True)
     print(summary(located, str(out)), file=sys.stderr)

@@ -21,7 +21,7 @@ import pandas as pd
 
 from envlink.errors import InputError, param_error
 from envlink.locate.gazetteer import Gazetteer, read_gazetteer
-from envlink.tables import require_columns
+from envlink.tables import cell_text, require_columns
 
 __all__ = ["locate", "OUTPUT_COLUMNS", "FLAG_MEANINGS", "Status"]
 
@@ -82,18 +82,23 @@ class _When:
     rejected: bool = False
 
 
+#: Invisible format characters that copy-paste from PDFs and web pages leaves in
+#: cells (zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks).
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
+
+
 def _text(value: Any) -> str:
-    """A cell as the text the user wrote ('' for an empty cell)."""
-    if value is None:
-        return ""
-    if isinstance(value, str):
-        return value
-    try:
-        if pd.isna(value):
-            return ""
-    except (TypeError, ValueError):
-        pass
-    return str(value)
+    """A cell as the text the user wrote ('' for an empty cell).
+
+    Typed cells (Parquet, Excel) are written as a person would: ``2001.0`` as
+    ``'2001'``, a midnight timestamp as its ISO date.
+    """
+    return cell_text(value)
+
+
+def _plain(value: Any) -> str:
+    """A coordinate or date cell as text, without invisible format characters."""
+    return cell_text(value).translate(_INVISIBLE)
 
 
 def _explain(flags: Sequence[str], where: str, given: Sequence[str] = (),
@@ -393,10 +398,10 @@ def locate(
     n = len(table)
     blank = [""] * n
 
-    def texts(name: str | None) -> list[str]:
-        return [_text(v) for v in table[name].tolist()] if name else blank
+    def texts(name: str | None, read: Callable[[Any], str] = _plain) -> list[str]:
+        return [read(v) for v in table[name].tolist()] if name else blank
 
-    lat_t, lon_t, coords_t, site_t = texts(lat), texts(lon), texts(coords), texts(site)
+    lat_t, lon_t, coords_t, site_t = texts(lat), texts(lon), texts(coords), texts(site, _text)
     per_t, start_t, end_t = texts(period), texts(start), texts(end)
 
     out_lat = np.full(n, np.nan, dtype=np.float64)

@@ -7,6 +7,7 @@ under tmp_path. Exit codes are DESIGN.md §4's contract (0 done, 2 bad input, 1 
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -158,3 +159,56 @@ def test_geopackage_gazetteer_with_polygon(files) -> None:
     assert main(_args(files["bom"], out, gpkg)) == 0
     row = read_table(out, as_text=True).iloc[2]
     assert row["site_wkt"].startswith("POLYGON ((158 -8") and row["locate_status"] == "ok"
+
+
+def test_parquet_keeps_types_and_reads_float_years(tmp_path: Path) -> None:
+    # A Parquet year column holding a blank is float64 (2001.0); it must read as the
+    # year 2001, and the user's numeric columns must stay numeric in the output.
+    src = tmp_path / "t.parquet"
+    pd.DataFrame({"lat": [-8.5, -9.0], "lon": [-117.2, -117.1],
+                  "start": [2001.0, 2002.0], "end": [2001.0, float("nan")]}).to_parquet(src)
+    out = tmp_path / "o.parquet"
+    assert main(["sites", str(src), "-o", str(out), "--lat", "lat", "--lon", "lon",
+                 "--start", "start", "--end", "end"]) == 0
+    got = pd.read_parquet(out)
+    assert str(got["lat"].dtype) == "float64" and str(got["start"].dtype) == "float64"
+    assert got["period_start"].tolist() == ["2001-01-01", "2002-01-01"]
+    assert got["locate_flags"].tolist() == ["", "end_missing"]
+
+
+def test_zero_width_characters_are_ignored(tmp_path: Path) -> None:
+    src = tmp_path / "t.csv"
+    src.write_text("lat,lon,when\n-8.5\u200b,\ufeff-117.2,2001\u200b\u2060\n", encoding="utf-8")
+    out = tmp_path / "o.csv"
+    assert main(["sites", str(src), "-o", str(out), "--lat", "lat", "--lon", "lon", "--period", "when"]) == 0
+    got = read_table(out, as_text=True)
+    assert got.loc[0, "lat"] == "-8.5\u200b"  # the input cell is kept as written
+    assert (got.loc[0, "site_lat"], got.loc[0, "period_end"], got.loc[0, "locate_status"]) == (
+        "-8.5", "2001-12-31", "ok")
+
+
+@pytest.mark.parametrize(
+    "extra,message",
+    [
+        (["--lat", "lat"], r"--lat needs --lon COL too"),
+        (["--end", "when"], r"--end needs --start COL too"),
+        (["--period", "when", "--start", "when", "--end", "when"], r"either --period COL .* not both"),
+        ([], r"No column to read: give --lat COL --lon COL"),
+    ],
+)
+def test_option_pairs_named_as_cli_options(tmp_path: Path, capsys, extra: list[str], message: str) -> None:
+    src = tmp_path / "t.csv"
+    src.write_text("lat,lon,when\n1,2,2001\n")
+    assert main(["sites", str(src), "-o", str(tmp_path / "o.csv"), *extra]) == 2
+    assert re.search(message, capsys.readouterr().err)
+
+
+def test_output_folder_and_duplicate_columns_exit_2(tmp_path: Path, capsys) -> None:
+    src = tmp_path / "t.csv"
+    src.write_text("lat,lon,lat\n1,2,3\n")
+    (tmp_path / "o.csv").mkdir()
+    assert main(["sites", str(src), "-o", str(tmp_path / "o.csv"), "--lat", "lat", "--lon", "lon"]) == 2
+    assert "it is a folder" in capsys.readouterr().err
+    assert main(["sites", str(src), "-o", str(tmp_path / "p.csv"), "--lat", "lat", "--lon", "lon"]) == 2
+    assert "columns 1 and 3 are both named 'lat'" in capsys.readouterr().err
+    assert not (tmp_path / "p.csv").exists()
