@@ -83,6 +83,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"envlink {args.command}: interrupted; no partial output was left.", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # stdout was closed early (e.g. piped into `head`): not an error of envlink.
+        # Point stdout at devnull so the interpreter's final flush stays quiet.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(devnull, sys.stdout.fileno())
+        except (AttributeError, OSError, ValueError):  # stdout is not a real file
+            pass
+        return 1
     except Exception as exc:  # noqa: BLE001 - last line of defence for users
         if debug:
             traceback.print_exc()

@@ -146,3 +146,37 @@ def test_site_not_found_names_the_closest() -> None:
 def test_season_months_option(value: str, message: str) -> None:
     with pytest.raises(InputError, match=message):
         parse_season_months(value)
+
+
+# ---------------------------------------------------------------------------------------
+# cli: the dispatcher
+# ---------------------------------------------------------------------------------------
+
+
+def test_closed_stdout_is_not_reported_as_a_bug(tmp_path, monkeypatch, capsys) -> None:
+    # `envlink grid FILE --json | head -1` closes stdout early; that is no bug of envlink.
+    import sys
+
+    import numpy as np
+    import xarray as xr
+
+    from envlink.cli import main
+
+    path = tmp_path / "g.nc"
+    xr.Dataset(
+        {"sst": (("time", "lat", "lon"), np.zeros((2, 2, 2)), {"units": "degC"})},
+        coords={"time": ("time", [0.0, 1.0], {"units": "days since 2000-01-01", "standard_name": "time"}),
+                "lat": ("lat", [0.5, 1.5], {"units": "degrees_north", "standard_name": "latitude"}),
+                "lon": ("lon", [0.5, 1.5], {"units": "degrees_east", "standard_name": "longitude"})},
+    ).to_netcdf(path)
+
+    class Closed:
+        def write(self, text: str) -> int:
+            raise BrokenPipeError(32, "Broken pipe")
+
+        def flush(self) -> None:
+            raise BrokenPipeError(32, "Broken pipe")
+
+    monkeypatch.setattr(sys, "stdout", Closed())
+    assert main(["grid", str(path), "--json"]) == 1
+    assert "bug" not in capsys.readouterr().err
