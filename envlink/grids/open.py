@@ -174,10 +174,48 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
         return xr.open_dataset(path, **kwargs)
     except Exception as exc:  # noqa: BLE001 - every backend failure means an unreadable file
         kind = "Zarr store" if _is_zarr(path) else "grid file"
+        if kind == "grid file" and not _has_grid_signature(path):
+            begins = f"it begins with {_first_bytes(path)!r}" if path.stat().st_size else "it is empty (0 bytes)"
+            raise GridError(
+                f"Cannot open the grid file {str(path)!r}: it is not a netCDF (classic or "
+                f"netCDF-4/HDF5) or GeoTIFF file; {begins}. Check the path: envlink grid "
+                "and --grid read gridded rasters, not tables."
+            ) from None
+        reason = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
         raise GridError(
-            f"Cannot open the {kind} {str(path)!r}: {type(exc).__name__}: {exc}. "
+            f"Cannot open the {kind} {str(path)!r}: {type(exc).__name__}: {reason}. "
             "It may be truncated, corrupt or not a netCDF/Zarr/GeoTIFF grid."
         ) from None
+
+
+#: File signatures of the formats open_raw reads: netCDF classic / 64-bit offset /
+#: CDF-5 (NetCDF Classic Format Spec.), HDF5 superblock (HDF5 File Format Spec. 2.2),
+#: TIFF and BigTIFF byte-order marks (TIFF 6.0, section 2).
+_SIGNATURES = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n", b"II*\x00", b"MM\x00*",
+               b"II+\x00", b"MM\x00+")
+
+
+def _has_grid_signature(path: Path) -> bool:
+    """True when the file starts like netCDF/HDF5/TIFF (HDF5 may sit after a user block)."""
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(8)
+            if head.startswith(_SIGNATURES):
+                return True
+            for offset in (512, 1024, 2048, 4096):  # HDF5 superblock after a user block
+                fh.seek(offset)
+                if fh.read(8) == b"\x89HDF\r\n\x1a\n":
+                    return True
+    except OSError:
+        return True  # cannot tell; keep the backend's own reason
+    return False
+
+
+def _first_bytes(path: Path) -> str:
+    with open(path, "rb") as fh:
+        head = fh.read(24)
+    text = head.decode("utf-8", errors="replace").replace("\r", " ").replace("\n", " ")
+    return text if text.isprintable() else repr(head)
 
 
 def _in_memory_identity(ds: xr.Dataset, variable: str) -> dict[str, Any]:

@@ -139,8 +139,23 @@ def test_truncated_classic_file_raises_grid_error(tmp_path, fmt, keep):
 def test_not_a_grid_file(tmp_path):
     p = tmp_path / "notes.nc"
     p.write_text("this is not netCDF\n")
-    with pytest.raises(GridError, match=r"notes\.nc"):
+    with pytest.raises(GridError, match=r"notes\.nc") as info:
         open_grid(p)
+    # the message says what the file is, without the backend's list of engines and links
+    msg = str(info.value)
+    assert "it is not a netCDF (classic or netCDF-4/HDF5) or GeoTIFF file" in msg
+    assert "begins with 'this is not netCDF '" in msg and "http" not in msg
+
+
+def test_empty_and_table_files_are_named_as_such(tmp_path):
+    empty = tmp_path / "empty.nc"
+    empty.write_bytes(b"")
+    with pytest.raises(GridError, match=r"it is empty \(0 bytes\)"):
+        open_grid(empty)
+    table = tmp_path / "sites.csv"
+    table.write_text("lat,lon\n1,2\n")
+    with pytest.raises(GridError, match=r"begins with 'lat,lon 1,2 '.*not tables"):
+        open_grid(table)
 
 
 def test_missing_file(tmp_path):
