@@ -61,7 +61,8 @@ def normalise_calendar(calendar: str | None, *, variable: str = "time") -> str:
     if cal not in CF_CALENDARS:
         raise InputError(
             f"The calendar {calendar!r} of {variable} is not a CF calendar; expected one of "
-            f"{', '.join(CF_CALENDARS)}. Declare the right one with calendar='noleap' (say)."
+            f"{', '.join(CF_CALENDARS)}. Declare the right one with calendar='noleap' (say), "
+            "or --calendar on the command line."
         )
     return cal
 

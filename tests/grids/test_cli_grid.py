@@ -60,3 +60,10 @@ def test_static_and_time_conflict(tmp_path, capsys):
     p = _file(tmp_path)
     assert main(["grid", str(p), "--static", "--time", "time"]) == 2
     assert "either --time NAME or --static" in capsys.readouterr().err
+
+
+def test_bad_calendar_names_the_option(tmp_path, capsys):
+    p = _file(tmp_path)
+    assert main(["grid", str(p), "--calendar", "julien"]) == 2
+    err = capsys.readouterr().err
+    assert "'julien'" in err and "is not a CF calendar" in err and "--calendar on the command line" in err
