@@ -13,6 +13,7 @@ their citations are in ``docs/methods-effects.md``.
 
 from __future__ import annotations
 
+import unicodedata
 import warnings
 from collections.abc import Callable
 from typing import Literal, NamedTuple
@@ -609,10 +610,48 @@ KINDS: dict[str, tuple[Callable[..., EffectResult], tuple[str, ...], tuple[str, 
 }  # fmt: skip
 
 
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
+_MINUS = dict.fromkeys(map(ord, "\u2212\u2010\u2011\u2012\u2013\ufe63\uff0d"), "-")
+
+
 def _numeric(col: pd.Series) -> NDArray[np.float64]:
-    if not (pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col)):
-        col = col.astype("string").str.strip()
-    return pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    """A column as float64 (see :func:`_read_numbers`); unreadable cells are NaN."""
+    return _read_numbers(col)[0]
+
+
+def _read_numbers(col: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """A column as float64, and which non-blank cells could not be read as a number.
+
+    Text is NFKC-normalised (full-width digits, no-break spaces), stripped of invisible
+    characters, and minus look-alikes become ``-``. A column with no ``.`` anywhere
+    whose comma numbers do not all have three digits after the comma (so cannot be
+    thousands) is read with decimal commas, as semicolon CSVs write them: ``12,5``.
+    """
+    if pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
+        values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+        return values, np.zeros(len(col), dtype=bool)
+    text = col.astype("string").fillna("")
+    text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(_INVISIBLE).translate(_MINUS).strip())
+    comma = text.str.fullmatch(r"[+-]?\d*,\d+")
+    if comma.any() and not text.str.contains(".", regex=False).any():
+        decimals = text[comma].str.split(",").str[-1].str.len()
+        if (decimals != 3).any():
+            text = text.str.replace(",", ".", regex=False)
+    values = pd.to_numeric(text.where(text != "", None), errors="coerce")
+    values = values.to_numpy(dtype=np.float64, na_value=np.nan)
+    unreadable = (text != "").to_numpy(dtype=bool) & np.isnan(values)
+    unreadable &= ~text.str.lower().isin(("nan", "na", "n/a", "none", "null")).to_numpy(dtype=bool)
+    return values, unreadable
+
+
+def _mark_unreadable(flags: NDArray[np.object_], unreadable: NDArray[np.bool_],
+                     blank: NDArray[np.bool_]) -> NDArray[np.object_]:
+    """Name rows with a cell that is not a number; ``missing_input`` stays only for blanks."""
+    out = flags.copy()
+    for i in np.flatnonzero(unreadable):
+        codes = [c for c in str(flags[i]).split(";") if c and (c != "missing_input" or blank[i])]
+        out[i] = ";".join(["unreadable_number", *codes])
+    return out
 
 
 def effect_sizes(
@@ -633,8 +672,9 @@ def effect_sizes(
     Parameters
     ----------
     table : pandas.DataFrame
-        One row per effect. Numbers may be text; blank or unparseable cells give a
-        NaN row flagged ``missing_input``.
+        One row per effect. Numbers may be text (full-width digits, decimal commas
+        as in ``12,5`` are read); a blank cell gives a NaN row flagged
+        ``missing_input``, a cell that is not a number one flagged ``unreadable_number``.
     kind : str
         One of the keys of :data:`KINDS`.
     name, variance_name, flags_name : str
@@ -664,10 +704,10 @@ def effect_sizes(
 
     Examples
     --------
-    >>> t = pd.DataFrame({"site": ["a", "b"], "sick": ["3", ""], "seen": [40, 25]})
+    >>> t = pd.DataFrame({"site": ["a", "b", "c"], "sick": ["3", "", "ten"], "seen": [40, 25, 30]})
     >>> out = effect_sizes(t, "logit_proportion", events="sick", total="seen")
     >>> out[["site", "effect", "effect_flags"]].round(4).to_dict("list")
-    {'site': ['a', 'b'], 'effect': [-2.5123, nan], 'effect_flags': ['', 'missing_input']}
+    {'site': ['a', 'b', 'c'], 'effect': [-2.5123, nan, nan], 'effect_flags': ['', 'missing_input', 'unreadable_number']}
     """
     caller = "effect_sizes"
     if kind not in KINDS:
@@ -696,13 +736,17 @@ def effect_sizes(
                 f"The table already has a column {out_name!r}; choose other output names "
                 "with name=, variance_name= or flags_name=."
             )
-    arrays = {k: _numeric(table[columns[k]]) for k in needed}
+    parsed = {k: _read_numbers(table[columns[k]]) for k in needed}
+    arrays = {k: v for k, (v, _) in parsed.items()}
+    unreadable = np.logical_or.reduce([u for _, u in parsed.values()])
+    blank = np.logical_or.reduce([np.isnan(v) & ~u for v, u in parsed.values()])
     opts = {k: v for k, v in given.items() if v is not None}
     res = func(*arrays.values(), **opts)
+    flags = _mark_unreadable(res.flags, unreadable, blank)
     out = table.copy()
     out[name] = res.effect
     out[variance_name] = res.variance
-    out[flags_name] = pd.Series(res.flags, index=table.index, dtype=object).astype(str)
+    out[flags_name] = pd.Series(flags, index=table.index, dtype=object).astype(str)
     return out
 
 

@@ -279,7 +279,7 @@ def test_effect_sizes_table_keeps_rows_and_columns() -> None:
     assert t.shape == (4, 7)  # input untouched
     direct = ef.hedges_g([103, 12], [5.5, 3], [50, 20], [100, 10], [4.5, 2], [50, 20])
     assert_allclose(out["effect"].to_numpy()[[0, 2]], direct.effect, rtol=1e-15)
-    assert out["effect_flags"].tolist() == ["", "missing_input", "", "sample_size_below_2"]
+    assert out["effect_flags"].tolist() == ["", "unreadable_number", "", "sample_size_below_2"]
     assert out["effect"].isna().tolist() == [False, True, False, True]
 
 
@@ -328,7 +328,7 @@ def test_effect_sizes_errors() -> None:
 
 
 _NAN_FLAGS = {
-    "missing_input", "nonfinite_input", "negative_count", "zero_total", "events_exceed_total",
+    "missing_input", "unreadable_number", "nonfinite_input", "negative_count", "zero_total", "events_exceed_total",
     "zero_cell", "sample_size_below_2", "negative_sd", "zero_sd", "nonpositive_mean",
     "correlation_out_of_range", "correlation_at_bound", "sample_size_at_most_3", "nonfinite_result",
 }  # fmt: skip
@@ -357,3 +357,28 @@ def test_any_numbers_give_a_value_or_a_reason() -> None:
                 assert not reasons and np.isfinite(e) and np.isfinite(v)
 
     check()
+
+
+def test_effect_sizes_reads_messy_number_text() -> None:
+    # Cells as spreadsheets and semicolon CSVs write them (common practice): full-width
+    # digits, no-break and zero-width spaces, a minus sign, decimal commas.
+    t = pd.DataFrame({"sick": ["\uff13", "3\u200b", "\u00a03\u00a0", "3"],
+                      "seen": ["40", "40", "40", "40"]}, dtype="string")
+    out = envlink.effect_sizes(t, "logit_proportion", events="sick", total="seen")
+    assert_allclose(out["effect"].to_numpy(), [math.log(3 / 37)] * 4, rtol=1e-15)
+    assert out["effect_flags"].tolist() == ["", "", "", ""]
+    g = pd.DataFrame({"m1": ["12,5", "\u22121,25"], "s1": ["2", "2"], "n1": ["10", "10"],
+                      "m2": ["10", "10"], "s2": ["2", "2"], "n2": ["10", "10"]})
+    got = envlink.effect_sizes(g, "hedges_g", mean1="m1", sd1="s1", n1="n1", mean2="m2", sd2="s2", n2="n2")
+    direct = ef.hedges_g([12.5, -1.25], [2, 2], [10, 10], [10, 10], [2, 2], [10, 10])
+    assert_allclose(got["effect"].to_numpy(), direct.effect, rtol=1e-15)
+
+
+def test_effect_sizes_unreadable_cell_is_not_called_missing() -> None:
+    # 'abc' is not a blank: the flag says the cell is not a number. '1,234' could be a
+    # thousands separator or a decimal comma, so it is not guessed.
+    t = pd.DataFrame({"sick": ["abc", "", "1,234", "n/a"], "seen": ["40", "", "4000", "10"]})
+    out = envlink.effect_sizes(t, "logit_proportion", events="sick", total="seen")
+    assert out["effect_flags"].tolist() == ["unreadable_number", "missing_input", "unreadable_number",
+                                            "missing_input"]
+    assert out["effect"].isna().all()
