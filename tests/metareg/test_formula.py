@@ -10,10 +10,10 @@ import numpy as np
 import pytest
 from formulaic import model_matrix
 from numpy.testing import assert_allclose
+from reference.bcg import table
 from statsmodels.regression.linear_model import WLS
 
 from envlink.metareg import MetaRegression
-from reference.bcg import table
 
 
 @pytest.mark.parametrize("formula", [
