@@ -13,7 +13,6 @@ their citations are in ``docs/methods-effects.md``.
 
 from __future__ import annotations
 
-import unicodedata
 import warnings
 from collections.abc import Callable
 from typing import Literal, NamedTuple
@@ -24,7 +23,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.special import gammaln
 
 from envlink.errors import EnvlinkWarning, InputError, param_error
-from envlink.tables import require_columns
+from envlink.tables import parse_numbers, require_columns
 
 __all__ = [
     "EffectKind",
@@ -610,38 +609,9 @@ KINDS: dict[str, tuple[Callable[..., EffectResult], tuple[str, ...], tuple[str, 
 }  # fmt: skip
 
 
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
-_MINUS = dict.fromkeys(map(ord, "\u2212\u2010\u2011\u2012\u2013\ufe63\uff0d"), "-")
-
-
 def _numeric(col: pd.Series) -> NDArray[np.float64]:
-    """A column as float64 (see :func:`_read_numbers`); unreadable cells are NaN."""
-    return _read_numbers(col)[0]
-
-
-def _read_numbers(col: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
-    """A column as float64, and which non-blank cells could not be read as a number.
-
-    Text is NFKC-normalised (full-width digits, no-break spaces), stripped of invisible
-    characters, and minus look-alikes become ``-``. A column with no ``.`` anywhere
-    whose comma numbers do not all have three digits after the comma (so cannot be
-    thousands) is read with decimal commas, as semicolon CSVs write them: ``12,5``.
-    """
-    if pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
-        values = pd.to_numeric(col, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-        return values, np.zeros(len(col), dtype=bool)
-    text = col.astype("string").fillna("")
-    text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(_INVISIBLE).translate(_MINUS).strip())
-    comma = text.str.fullmatch(r"[+-]?\d*,\d+")
-    if comma.any() and not text.str.contains(".", regex=False).any():
-        decimals = text[comma].str.split(",").str[-1].str.len()
-        if (decimals != 3).any():
-            text = text.str.replace(",", ".", regex=False)
-    values = pd.to_numeric(text.where(text != "", None), errors="coerce")
-    values = values.to_numpy(dtype=np.float64, na_value=np.nan)
-    unreadable = (text != "").to_numpy(dtype=bool) & np.isnan(values)
-    unreadable &= ~text.str.lower().isin(("nan", "na", "n/a", "none", "null")).to_numpy(dtype=bool)
-    return values, unreadable
+    """A column as float64 (see :func:`envlink.tables.parse_numbers`); unreadable cells are NaN."""
+    return parse_numbers(col)[0]
 
 
 def _mark_unreadable(flags: NDArray[np.object_], unreadable: NDArray[np.bool_],
@@ -736,7 +706,7 @@ def effect_sizes(
                 f"The table already has a column {out_name!r}; choose other output names "
                 "with name=, variance_name= or flags_name=."
             )
-    parsed = {k: _read_numbers(table[columns[k]]) for k in needed}
+    parsed = {k: parse_numbers(table[columns[k]]) for k in needed}
     arrays = {k: v for k, (v, _) in parsed.items()}
     unreadable = np.logical_or.reduce([u for _, u in parsed.values()])
     blank = np.logical_or.reduce([np.isnan(v) & ~u for v, u in parsed.values()])

@@ -12,6 +12,7 @@ report; :func:`run_demo` runs the bundled invented demo.
 from __future__ import annotations
 
 import os
+import re
 import sys
 import tempfile
 import time
@@ -26,7 +27,7 @@ import pandas as pd
 
 from envlink._projectschema import check_columns, check_files, formula_columns, validate, where
 from envlink._util import atomic_path
-from envlink.errors import InputError
+from envlink.errors import EnvlinkError, InputError
 
 __all__ = ["Project", "RunResult", "load_project", "run_project", "run_demo"]
 
@@ -207,6 +208,39 @@ def _label_columns(model: Mapping[str, Any]) -> set[str]:
     return {model[k] for k in ("nested", "cluster") if k in model}
 
 
+def _numeric_columns(project: Project, table: pd.DataFrame, needed: list[str], formula: str,
+                     labels: set[str]) -> dict[str, np.ndarray]:
+    """The model's number columns as float64, read as :func:`parse_numbers` reads them.
+
+    The effect, the variance and every moderator that is not a label or written
+    ``C(col)`` in the formula are numbers when any of their cells is one; a cell that
+    is then not a number (``approx. 5``) is an :class:`InputError` naming its rows,
+    rather than the column silently becoming a category with one level per value.
+    """
+    from envlink.tables import parse_numbers
+
+    effect, variance = needed[0], needed[1]
+    out: dict[str, np.ndarray] = {}
+    for col in dict.fromkeys(needed):
+        if col in labels or re.search(rf"\bC\(\s*{re.escape(col)}\b", formula):
+            continue
+        values, unreadable = parse_numbers(table[col])
+        if col not in (effect, variance) and not np.isfinite(values).any():
+            continue  # a text column: a category
+        if unreadable.any():
+            rows = np.flatnonzero(unreadable)
+            shown = ", ".join(f"row {i + 1} {str(table[col].iloc[i])!r}" for i in rows[:5])
+            more = f" and {rows.size - 5} more" if rows.size > 5 else ""
+            raise InputError(
+                f"{where(project, 'model')}: the column {col!r} holds numbers, but {shown}{more} "
+                f"{'is' if rows.size == 1 else 'are'} not a number. Write a number or leave the "
+                f"cell blank (blank rows are left out of the fit); write C({col}) in the "
+                "moderators if the column is a category."
+            )
+        out[col] = values
+    return out
+
+
 def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str):
     import envlink
 
@@ -216,27 +250,25 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
     if formula:
         needed += formula_columns(formula, [str(c) for c in table.columns])
     needed += [model[k] for k in ("nested", "cluster") if k in model]
+    numeric = _numeric_columns(project, table, needed, formula or "", _label_columns(model))
     ok = np.ones(len(table), dtype=bool)
     if "locate_status" in table:
         ok &= table["locate_status"].astype(str).to_numpy() != "rejected"
     for col in needed:
-        s = table[col]
-        if col in (effect, variance) or pd.api.types.is_numeric_dtype(s.dtype):
-            ok &= np.isfinite(pd.to_numeric(s, errors="coerce").to_numpy(dtype=float))
+        if col in numeric:
+            ok &= np.isfinite(numeric[col])
         else:
-            ok &= (s.notna() & (s.astype(str) != "")).to_numpy()
-    ok &= pd.to_numeric(table[variance], errors="coerce").to_numpy(dtype=float) > 0
+            s = table[col]
+            ok &= (s.notna() & (s.astype(str).str.strip() != "")).to_numpy()
+    ok &= numeric[variance] > 0
     if ok.sum() < 3:
         raise InputError(
             f"{where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
             f"and every moderator ({', '.join(needed)}); the model needs at least 3."
         )
     data = table.loc[ok].reset_index(drop=True)
-    for col in needed:  # numbers read as text from the studies table become numbers
-        if not pd.api.types.is_numeric_dtype(data[col].dtype) and col not in _label_columns(model):
-            numbers = pd.to_numeric(data[col], errors="coerce")
-            if numbers.notna().all():
-                data[col] = numbers.astype(np.float64)
+    for col, values in numeric.items():  # numbers read as text from the studies table
+        data[col] = values[ok]
     options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
     reg = envlink.MetaRegression(moderators=formula, **options)
     fit = reg.fit(data, effect=effect, variance=variance)
@@ -298,6 +330,11 @@ def run_project(
     if not isinstance(project, Project):
         project = load_project(project)
     out_dir = Path(out) if out is not None else project.out
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(
+            f"The output folder {str(out_dir)!r} is a file; give a folder (it is created if "
+            "missing) with --out DIR or [project] out."
+        )
     targets = _targets(project, out_dir)
     existing = [str(p) for p in targets.values() if p.exists()]
     if existing and not force:
@@ -310,6 +347,13 @@ def run_project(
     steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
                    + bool(targets.get("report")), progress)  # fmt: skip
     check_files(project)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(
+            f"Cannot create the output folder {str(out_dir)!r}: {exc.strerror or exc}. "
+            "Choose another folder with --out DIR."
+        ) from exc
     try:
         table = read_table_as_written(project.studies)
         input_columns = [str(c) for c in table.columns]
@@ -392,6 +436,14 @@ def run_project(
                 tmp.write_text(html, encoding="utf-8")
             paths["report"] = targets["report"]
         steps.done("export")
+    except OSError as exc:
+        if isinstance(exc, EnvlinkError):
+            raise
+        where_ = f" ({exc.filename})" if exc.filename else ""
+        raise EnvlinkError(
+            f"Cannot write the outputs in {str(out_dir)!r}: {exc.strerror or exc}{where_}; "
+            "no partial output file was left."
+        ) from exc
     finally:
         steps.close()
     return RunResult(out=out_dir, table=table, fit=fit, paths=paths, fit_rows=fit_rows,

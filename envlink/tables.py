@@ -12,11 +12,14 @@ import io
 import math
 import numbers
 import os
+import unicodedata
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
+from numpy.typing import NDArray
 
 from envlink._util import atomic_path, did_you_mean
 from envlink.errors import InputError
@@ -28,6 +31,8 @@ __all__ = [
     "check_output_path",
     "require_columns",
     "cell_text",
+    "parse_numbers",
+    "MISSING_WORDS",
     "TABLE_SUFFIXES",
 ]
 
@@ -278,6 +283,45 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
     except ImportError as exc:
         raise InputError(f"Cannot write table {str(p)!r}: {exc}") from exc
     return p
+
+
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
+_MINUS = dict.fromkeys(map(ord, "\u2212\u2010\u2011\u2012\u2013\ufe63\uff0d"), "-")
+#: cell texts that mean "no value" in compiled tables (common practice)
+MISSING_WORDS = ("nan", "na", "n/a", "none", "null", "-", "--", "?")
+
+
+def parse_numbers(values: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """A column as float64, and which non-blank cells could not be read as a number.
+
+    Text is NFKC-normalised (full-width digits, no-break spaces), stripped of
+    invisible characters, and minus look-alikes become ``-``. A column with no ``.``
+    anywhere whose comma numbers do not all have three digits after the comma (so
+    cannot be thousands separators) is read with decimal commas, as semicolon CSVs
+    write them (``12,5``). Blank cells and the words of :data:`MISSING_WORDS` are
+    missing (NaN, not unreadable).
+
+    Examples
+    --------
+    >>> v, bad = parse_numbers(pd.Series(["12,5", "", "\uff13", "n/a", "abc"]))
+    >>> v.tolist(), bad.tolist()
+    ([12.5, nan, 3.0, nan, nan], [False, False, False, False, True])
+    """
+    if pd.api.types.is_numeric_dtype(values) or pd.api.types.is_bool_dtype(values):
+        out = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+        return out, np.zeros(len(values), dtype=bool)
+    text = pd.Series([cell_text(v) for v in values.tolist()], index=values.index, dtype="string")
+    text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(_INVISIBLE).translate(_MINUS).strip())
+    text = text.where(~text.str.lower().isin(MISSING_WORDS), "")
+    comma = text.str.fullmatch(r"[+-]?\d*,\d+")
+    if comma.any() and not text.str.contains(".", regex=False).any():
+        decimals = text[comma].str.split(",").str[-1].str.len()
+        if (decimals != 3).any():
+            text = text.str.replace(",", ".", regex=False)
+    number = pd.to_numeric(text.where(text != "", None), errors="coerce")
+    out = number.to_numpy(dtype=np.float64, na_value=np.nan)
+    unreadable = (text != "").to_numpy(dtype=bool) & np.isnan(out)
+    return out, unreadable
 
 
 def require_columns(df: pd.DataFrame, columns: Iterable[str | None], *, what: str = "table") -> None:

@@ -303,3 +303,48 @@ def test_stage_errors_name_the_covariate_and_line(tmp_path: Path) -> None:
     text_line = _line_of(bad_window, "[[covariates]]")
     with pytest.raises(InputError, match=rf"line {text_line} \(covariate 't_mean'\): "):
         run_project(_project(tmp_path, bad_window, name="w.toml"), progress=False, force=True)
+
+
+def _fit_depth(result) -> float:
+    return next(c["estimate"] for c in result.fit.to_dict()["coefficients"] if c["term"] == "depth")
+
+
+def test_numeric_moderator_written_as_text_is_a_number(tmp_path: Path) -> None:
+    # depth with decimal commas (a semicolon CSV) and full-width digits must stay one
+    # numeric moderator with one slope, not a category with one level per value.
+    p = _project(tmp_path)
+    reference = run_project(p, progress=False)
+    semi = STUDIES.replace(",", ";").replace(";80;3\n", ";80;3,0\n").replace(";90;9\n", ";90;\uff19\n")
+    assert ";3,0\n" in semi and "\uff19" in semi
+    (tmp_path / "studies.csv").write_text(semi, encoding="utf-8")
+    result = run_project(p, progress=False, out=tmp_path / "o2")
+    assert result.fit.to_dict()["p"] == 2 and result.fit_rows == 5
+    np.testing.assert_allclose(_fit_depth(result), _fit_depth(reference), rtol=1e-10)
+
+
+def test_moderator_cell_that_is_not_a_number_names_row_and_column(tmp_path: Path) -> None:
+    p = _project(tmp_path)
+    (tmp_path / "studies.csv").write_text(STUDIES.replace(",75,6\n", ",75,approx. 6\n", 1))
+    with pytest.raises(InputError, match=(
+            rf"p\.toml, line {_line_of(BASE, '[model]')}: the column 'depth' holds numbers, but "
+            r"row 5 'approx\. 6' is not a number\. .*C\(depth\)")):
+        run_project(p, progress=False)
+    # a blank (or 'n/a') cell is missing: that row is left out of the fit, not an error
+    (tmp_path / "studies.csv").write_text(STUDIES.replace(",75,6\n", ",75,n/a\n", 1))
+    assert run_project(p, progress=False).fit_rows == 4
+
+
+def test_output_folder_that_is_a_file_or_cannot_be_made(tmp_path: Path, monkeypatch, capsys) -> None:
+    p = _project(tmp_path)
+    (tmp_path / "afile").write_text("")
+    assert main(["run", str(p), "--out", str(tmp_path / "afile"), "--no-progress"]) == 2
+    assert "The output folder" in capsys.readouterr().err
+    (tmp_path / "ro").mkdir()
+
+    def refuse(self, *args, **kwargs):
+        raise PermissionError(13, "Permission denied", str(self))
+
+    monkeypatch.setattr(Path, "mkdir", refuse)
+    assert main(["run", str(p), "--out", str(tmp_path / "ro" / "sub"), "--no-progress"]) == 2
+    err = capsys.readouterr().err
+    assert "Cannot create the output folder" in err and "Permission denied" in err and "bug" not in err

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import pytest
 
 from envlink.errors import InputError
 from envlink.tables import (
     cell_text,
+    parse_numbers,
     read_table,
     read_table_as_written,
     require_columns,
@@ -130,3 +132,14 @@ def test_write_failure_hides_temporary_name(tmp_path, monkeypatch) -> None:
 def test_cell_text_forms() -> None:
     assert [cell_text(v) for v in (None, pd.NA, pd.NaT, 3, 2.0, 1e20, -0.125, True)] == [
         "", "", "", "3", "2", "1e+20", "-0.125", "True"]
+
+
+def test_parse_numbers_decimal_commas_only_when_unambiguous() -> None:
+    # '1,234' alone could be a thousands separator: not guessed (flagged unreadable);
+    # beside '12,5' the column clearly uses decimal commas.
+    v, bad = parse_numbers(pd.Series(["1,234", "7"]))
+    assert bad.tolist() == [True, False] and v[1] == 7.0
+    v, bad = parse_numbers(pd.Series(["1,234", "12,5", "\u22120,5", " 3\u00a0"]))
+    assert v.tolist() == [1.234, 12.5, -0.5, 3.0] and not bad.any()
+    v, bad = parse_numbers(pd.Series([1.5, None]))
+    assert np.isnan(v[1]) and not bad.any()
