@@ -252,19 +252,37 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
     needed += [model[k] for k in ("nested", "cluster") if k in model]
     numeric = _numeric_columns(project, table, needed, formula or "", _label_columns(model))
     ok = np.ones(len(table), dtype=bool)
+    lacking: dict[str, int] = {}
     if "locate_status" in table:
         ok &= table["locate_status"].astype(str).to_numpy() != "rejected"
-    for col in needed:
+        lacking["rejected by locate"] = int((~ok).sum())
+    for col in dict.fromkeys(needed):
         if col in numeric:
-            ok &= np.isfinite(numeric[col])
+            has = np.isfinite(numeric[col]) & ((numeric[col] > 0) if col == variance else True)
         else:
             s = table[col]
-            ok &= (s.notna() & (s.astype(str).str.strip() != "")).to_numpy()
-    ok &= numeric[variance] > 0
-    if ok.sum() < 3:
+            has = (s.notna() & (s.astype(str).str.strip() != "")).to_numpy()
+        lacking[repr(col)] = int((~has).sum())
+        ok &= has
+    if len(table) == 0:
         raise InputError(
-            f"{where(project, 'model')}: only {int(ok.sum())} rows have a finite effect, variance "
-            f"and every moderator ({', '.join(needed)}); the model needs at least 3."
+            f"{where(project, 'model')}: the studies table {str(project.studies)!r} has no data "
+            "rows (only a header), so there is nothing to fit."
+        )
+    if ok.sum() < 3:
+        counts = ", ".join(f"{what} {n}" for what, n in lacking.items() if n)
+        hint = ""
+        for col in dict.fromkeys(needed):
+            flags = f"{col}_flags"
+            if lacking.get(repr(col)) and flags in table:
+                common = table[flags].astype(str).replace("", np.nan).dropna().value_counts()
+                if len(common):
+                    hint = f" Most rows lacking {col!r} are flagged {common.index[0]!r} (see {flags})."
+                    break
+        raise InputError(
+            f"{where(project, 'model')}: only {int(ok.sum())} of {len(table)} rows have a finite "
+            f"effect, a positive variance and every moderator ({', '.join(needed)}); the model "
+            f"needs at least 3. Rows lacking each: {counts or 'none'}.{hint}"
         )
     data = table.loc[ok].reset_index(drop=True)
     for col, values in numeric.items():  # numbers read as text from the studies table

@@ -348,3 +348,15 @@ def test_output_folder_that_is_a_file_or_cannot_be_made(tmp_path: Path, monkeypa
     assert main(["run", str(p), "--out", str(tmp_path / "ro" / "sub"), "--no-progress"]) == 2
     err = capsys.readouterr().err
     assert "Cannot create the output folder" in err and "Permission denied" in err and "bug" not in err
+
+
+def test_too_few_rows_says_which_column_is_lacking(tmp_path: Path) -> None:
+    p = _project(tmp_path)
+    (tmp_path / "studies.csv").write_text(STUDIES.replace(",3\n", ",\n").replace(",9\n", ",\n")
+                                          .replace(",4\n", ",\n").replace(",12\n", ",\n"))
+    with pytest.raises(InputError, match=r"only 1 of 6 rows .* Rows lacking each: rejected by locate 1, "
+                                         r"'depth' 4\."):
+        run_project(p, progress=False)
+    (tmp_path / "studies.csv").write_text(STUDIES.splitlines()[0] + "\n")
+    with pytest.raises(InputError, match=r"has no data rows \(only a header\)"):
+        run_project(p, progress=False)
