@@ -289,7 +289,11 @@ def _fit_model(project: Project, table: pd.DataFrame, effect: str, variance: str
         data[col] = values[ok]
     options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
     reg = envlink.MetaRegression(moderators=formula, **options)
-    fit = reg.fit(data, effect=effect, variance=variance)
+    try:
+        fit = reg.fit(data, effect=effect, variance=variance)
+    except InputError as exc:
+        key = "moderators" if formula else None
+        raise InputError(f"{where(project, 'model', *([key] if key else []))}: {exc}") from exc
     used = table.loc[ok]
     egger = envlink.egger_test(pd.to_numeric(used[effect]).to_numpy(dtype=float),
                                pd.to_numeric(used[variance]).to_numpy(dtype=float))  # fmt: skip

@@ -360,3 +360,10 @@ def test_too_few_rows_says_which_column_is_lacking(tmp_path: Path) -> None:
     (tmp_path / "studies.csv").write_text(STUDIES.splitlines()[0] + "\n")
     with pytest.raises(InputError, match=r"has no data rows \(only a header\)"):
         run_project(p, progress=False)
+
+
+def test_formula_error_names_the_moderators_line(tmp_path: Path) -> None:
+    text = BASE.replace('moderators = "depth"', 'moderators = "dpeth"')
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"p\.toml, line {_line_of(text, 'moderators = ')}: .*'dpeth'"):
+        run_project(p, progress=False)
