@@ -27,6 +27,7 @@ __all__ = [
     "ValidRangeWarning",
     "decode_values",
     "normalise_lonlat",
+    "check_latitudes",
     "wrap_longitude",
     "covers_circle",
 ]
@@ -212,6 +213,26 @@ def covers_circle(lon: np.ndarray) -> bool:
     return bool(gaps.max() <= 1.5 * med + 1e-9)
 
 
+def check_latitudes(lat: np.ndarray) -> None:
+    """Raise :class:`GridError` when latitudes leave [-90, 90] (a y axis in metres, or swapped axes).
+
+    Examples
+    --------
+    >>> check_latitudes(np.array([-90.0, 0.0, 90.0]))
+    >>> check_latitudes(np.array([95.0, 100.0]))
+    Traceback (most recent call last):
+    ...
+    envlink.errors.GridError: The latitude coordinate runs 95..100, beyond -90..90 degrees...
+    """
+    finite = lat[np.isfinite(lat)]
+    if finite.size and (finite.min() < -90.0 - 1e-9 or finite.max() > 90.0 + 1e-9):
+        raise GridError(
+            f"The latitude coordinate runs {finite.min():g}..{finite.max():g}, beyond -90..90 "
+            "degrees: it may be a projected y axis in metres, or latitude and longitude may be "
+            "swapped. Name the right axis with lat='NAME' (--lat NAME on the command line)."
+        )
+
+
 def normalise_lonlat(
     da: xr.DataArray, *, lat: str = "lat", lon: str = "lon"
 ) -> tuple[xr.DataArray, list[str]]:
@@ -233,6 +254,7 @@ def normalise_lonlat(
     lat_raw = np.asarray(da[lat].values, dtype=np.float64)
     if not (np.all(np.isfinite(lon_raw)) and np.all(np.isfinite(lat_raw))):
         raise GridError("The latitude or longitude coordinate holds missing values.")
+    check_latitudes(lat_raw)
     wrapped = wrap_longitude(lon_raw)
     shifted = not np.array_equal(wrapped, lon_raw)
     order = np.argsort(wrapped, kind="stable")

@@ -21,7 +21,13 @@ import xarray as xr
 from envlink._util import did_you_mean
 from envlink.errors import GridError, InputError
 from envlink.grids.axes import find_axis, missing_axis_error
-from envlink.grids.conventions import covers_circle, decode_values, normalise_lonlat, wrap_longitude
+from envlink.grids.conventions import (
+    check_latitudes,
+    covers_circle,
+    decode_values,
+    normalise_lonlat,
+    wrap_longitude,
+)
 from envlink.grids.timeaxis import (
     STANDARD_CALENDARS,
     cells_from_bounds,
@@ -272,6 +278,7 @@ def normalise_dataset(
         is_global = covers_circle(values["lon"].values) if values.sizes["lon"] > 1 else False
     elif layout == "curvilinear":
         lat2 = _coord_values(ds[lat_name])
+        check_latitudes(np.asarray(lat2, dtype=np.float64))
         lon_in = _coord_values(ds[lon_name])
         lon2 = wrap_longitude(lon_in)
         values = values.assign_coords(lat=(("y", "x"), lat2), lon=(("y", "x"), lon2))

@@ -252,6 +252,9 @@ def grid_info(
         notes.append("the time axis has no calendar attribute; CF's default 'standard' was assumed "
                      "(declare another with calendar= / --calendar).")
     fraction, sample_text = _masked(da)
+    if fraction >= 1.0:
+        notes.append(f"every cell looked at is masked or missing ({sample_text}): no value can be "
+                     "attached from this variable; check --var and the file's _FillValue/valid_range.")
     extent, res = _extent(da)
     files = identity.get("files", [])
     source_text = (

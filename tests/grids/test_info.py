@@ -119,3 +119,11 @@ def test_many_files_warned_and_cftime_calendar_summarised(tmp_path):
     assert info.time["end"] == "2020-01-01T00:00:00" and info.calendar == "360_day"
     assert info.storage["files"] == 20
     assert any("split over 20 files" in w for w in info.warnings)
+
+
+def test_all_masked_variable_is_warned(tmp_path):
+    p = simple_grid(tmp_path / "m.nc", np.full((2, 2, 2), np.nan), lat=np.array([0.5, 1.5]),
+                    lon=np.array([0.5, 1.5]), time=np.array([0.0, 1.0]))
+    info = grid_info(p)
+    assert info.masked_fraction == 1.0
+    assert any("every cell looked at is masked or missing" in w for w in info.warnings)

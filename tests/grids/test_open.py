@@ -292,3 +292,11 @@ def test_projected_netcdf_with_cf_grid_mapping_parameters(tmp_path):
     # pyproj builds the CRS from the CF grid-mapping attributes (CF §5.6, Appendix F).
     ref = CRS.from_cf(gm)
     assert CRS.from_wkt(g.attrs["crs_wkt"]).equals(ref)
+
+
+def test_latitudes_beyond_90_are_refused(tmp_path):
+    # common practice: a y axis in metres or swapped axes must not pass as latitude
+    p = simple_grid(tmp_path / "y.nc", np.zeros((1, 2, 2)), lat=np.array([95.0, 100.0]),
+                    lon=np.array([0.5, 1.5]), time=np.array([0.0]))
+    with pytest.raises(GridError, match=r"latitude coordinate runs 95\.\.100, beyond -90\.\.90 .*--lat NAME"):
+        open_grid(p)
