@@ -176,7 +176,8 @@ def read_season(
         raise PeriodError(
             field,
             f"the {word!r} season has no fixed months; give them through season_months "
-            f"(e.g. {{'{word}': [11, 12, 1, 2, 3, 4]}}; seasons mapped: {known})",
+            f"(--season-months on the command line; e.g. {{'{word}': [11, 12, 1, 2, 3, 4]}}; "
+            f"seasons mapped: {known})",
             "season_needs_mapping", text,
         )
     return None

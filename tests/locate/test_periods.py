@@ -411,7 +411,7 @@ ERRORS = [
     # two-digit year
     ("05/06/11", "unreadable_period", r"two-digit years are not read"),
     # wet season without a mapping
-    ("wet season 2012", "season_needs_mapping", r"the 'wet' season has no fixed months.*season_months"),
+    ("wet season 2012", "season_needs_mapping", r"the 'wet' season has no fixed months.*season_months \(--season-months on the command line"),
     # any other named season without months
     ("monsoon 2012", "season_needs_mapping", r"'monsoon' season has no fixed months"),
     # a split year for a season inside one calendar year
