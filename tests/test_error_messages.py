@@ -83,6 +83,13 @@ def test_gazetteer_no_name_column() -> None:
         read_gazetteer(pd.DataFrame({"id": ["a"], "lat": ["1"], "lon": ["2"]}))
 
 
+def test_gazetteer_without_rows(tmp_path) -> None:
+    path = tmp_path / "reefs.csv"
+    path.write_text("name,lat,lon\n")
+    with pytest.raises(InputError, match=r"Gazetteer '.*reefs\.csv' holds no sites \(no data rows\)"):
+        read_gazetteer(path)
+
+
 def test_gazetteer_named_column_missing_did_you_mean() -> None:
     with pytest.raises(InputError, match=r"has no column 'reefname'\. Did you mean 'reef_name'\?"):
         read_gazetteer(pd.DataFrame({"reef_name": ["a"], "lat": ["1"], "lon": ["2"]}), name_col="reefname")

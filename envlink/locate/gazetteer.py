@@ -421,6 +421,15 @@ def _entries_from_geo(gdf: Any, source: str, name_col: str | None, precision_col
     return entries
 
 
+def _nonempty(entries: Sequence[_Entry], label: str) -> Gazetteer:
+    if not entries:
+        raise InputError(
+            f"Gazetteer {label} holds no sites (no data rows); every site name would be "
+            "'not found'. Check that the file is the right one and has rows below its header."
+        )
+    return Gazetteer(entries, label)
+
+
 def read_gazetteer(
     source: str | os.PathLike[str] | pd.DataFrame,
     *,
@@ -471,8 +480,8 @@ def read_gazetteer(
     if isinstance(source, pd.DataFrame):
         label = "(table)"
         if gpd is not None and isinstance(source, gpd.GeoDataFrame):
-            return Gazetteer(_entries_from_geo(source, label, name_col, precision_col), label)
-        return Gazetteer(
+            return _nonempty(_entries_from_geo(source, label, name_col, precision_col), label)
+        return _nonempty(
             _entries_from_table(source, label, name_col, lat_col, lon_col, coords_col, precision_col),
             label,
         )
@@ -485,11 +494,11 @@ def read_gazetteer(
             gdf = gpd.read_file(path, engine="pyogrio")  # type: ignore[union-attr]
         except Exception as exc:  # noqa: BLE001 - any reader failure is the user's file
             raise InputError(f"Cannot read gazetteer {label}: {exc}") from exc
-        return Gazetteer(_entries_from_geo(gdf, label, name_col, precision_col), label)
+        return _nonempty(_entries_from_geo(gdf, label, name_col, precision_col), label)
     from envlink.tables import read_table
 
     table = read_table(path, as_text=True)
-    return Gazetteer(
+    return _nonempty(
         _entries_from_table(table, label, name_col, lat_col, lon_col, coords_col, precision_col),
         label,
     )
