@@ -224,7 +224,16 @@ def _by_labels(s: str) -> Coordinate | None:
     return _assemble(read_angle(first, axes[0]), read_angle(second, axes[1]), axes)
 
 
+#: OGC Simple Features WKT point, x (longitude) first, optionally EWKT ``SRID=4326;``
+_WKT_POINT = re.compile(
+    r"^(?:srid=4326;)?\s*point\s*(?:z|m|zm)?\s*\(\s*(\S+)\s+(\S+)(?:\s+\S+){0,2}\s*\)$", re.I
+)
+
+
 def _parse_pair(s: str) -> Coordinate:
+    wkt = _WKT_POINT.match(s)
+    if wkt:  # the order is fixed (x = lon, y = lat): read by labels, never swapped
+        s = f"lat {wkt.group(2)} lon {wkt.group(1)}"
     iso = read_iso6709(s)
     if iso is not None:
         lat_angle, lon_angle, extra = iso
@@ -285,7 +294,8 @@ def parse_coordinates(text: str) -> Coordinate:
         Decimal degrees (signed, or with hemisphere letters or words before or after),
         degrees-minutes(-seconds) with ``°'"`` or look-alikes, colons, spaces or hyphens,
         comma decimals, any dash as minus, optional brackets and ``lat``/``lon`` labels,
-        or an ISO 6709 string such as ``+1230-04512/``.
+        an ISO 6709 string such as ``+1230-04512/``, or a WKT point
+        ``POINT (lon lat)`` (x first, as envlink's ``site_wkt`` writes it).
 
     Returns
     -------
@@ -310,6 +320,9 @@ def parse_coordinates(text: str) -> Coordinate:
     ('swapped_lat_lon',)
     >>> parse_coordinates("-7.3, 210.0").lon, parse_coordinates("-7.3, 210.0").flags
     (-150.0, ('lon_0_360',))
+    >>> c = parse_coordinates("POINT (-117.2 -8.5)")
+    >>> c.lat, c.lon
+    (-8.5, -117.2)
     """
     raw = _text_of(text, "coords")
     try:

@@ -440,3 +440,16 @@ def test_docs_page_lists_every_flag_and_code() -> None:
     text = _DOC.read_text(encoding="utf-8")
     for code in [*COORDINATE_FLAGS, *COORDINATE_ERRORS]:
         assert f"`{code}`" in text, code
+
+
+@pytest.mark.parametrize("text", ["POINT (-117.2 -8.5)", "point(-117.2 -8.5)", "SRID=4326;POINT Z (-117.2 -8.5 3)"])
+def test_wkt_point_is_x_then_y(text: str) -> None:
+    # OGC Simple Features (ISO 19125-1) WKT: a point is written x y, i.e. lon lat
+    c = parse_coordinates(text)
+    assert (c.lat, c.lon, c.flags) == (-8.5, -117.2, ())
+
+
+def test_wkt_point_is_never_swapped() -> None:
+    # the order is fixed by the standard, so lat out of range is an error, not a swap
+    with pytest.raises(CoordinateError, match=r"latitude -117\.2 is beyond ±90"):
+        parse_coordinates("POINT (-8.5 -117.2)")
