@@ -9,7 +9,9 @@ One call writes a set of files into one folder:
   ``envlink``) and each field's description and unit in the field metadata;
 - ``NAME.gpkg``: one layer ``NAME``, one feature per row, a point at
   ``site_lat`` / ``site_lon`` or the region polygon from ``site_wkt`` (EPSG:4326);
-  rows without a location have an empty geometry;
+  rows without a location have an empty geometry (the geometry column is named
+  ``geom`` and the feature id ``gpkg_fid`` where the table has a ``geometry`` /
+  ``fid`` column of its own, so those keep their values);
 - ``fit.json`` (the meta-regression JSON contract) and ``fit.txt`` (its summary),
   when a fit is given.
 
@@ -39,7 +41,7 @@ from envlink._exportschema import file_sha256, jsonable, software_versions, tabl
 from envlink._util import atomic_path, did_you_mean
 from envlink.errors import InputError
 
-__all__ = ["export_table", "table_schema", "software_versions", "file_sha256", "FORMATS"]
+__all__ = ["export_table", "check_columns_exportable", "table_schema", "software_versions", "file_sha256", "FORMATS"]
 
 #: Table formats :func:`export_table` writes.
 FORMATS = ("csv", "parquet", "gpkg")
@@ -126,7 +128,7 @@ def _geometries(df: pd.DataFrame) -> list[Any]:
                 g = shapely.from_wkt(wkt.iloc[i])
             except shapely.errors.GEOSException as exc:
                 raise InputError(
-                    f"Row {i}: column 'site_wkt' holds text that is not WKT ({exc}); "
+                    f"Row {i + 1}: column 'site_wkt' holds text that is not WKT ({exc}); "
                     "expected e.g. 'POLYGON ((lon lat, ...))'."
                 ) from exc
         elif lat is not None and lon is not None and np.isfinite(lat.iloc[i]) and np.isfinite(lon.iloc[i]):
@@ -135,16 +137,33 @@ def _geometries(df: pd.DataFrame) -> list[Any]:
     return geoms
 
 
+def _unused(names: Sequence[str], taken: set[str]) -> str:
+    name = next((n for n in names if n not in taken), None)
+    if name is None:
+        name = next(f"{names[-1]}_{i}" for i in range(1, len(taken) + 2) if f"{names[-1]}_{i}" not in taken)
+    return name
+
+
 def _write_gpkg(df: pd.DataFrame, path: Path, layer: str) -> None:
     import geopandas as gpd
 
-    gdf = gpd.GeoDataFrame(df.copy(), geometry=_geometries(df), crs="EPSG:4326")
-    if "geometry" in df.columns:  # a user column of that name keeps its values
-        raise InputError("The table has a column named 'geometry'; rename it before export.")
+    # A user column named 'geometry' or 'fid' keeps its values: the geometry and the
+    # GeoPackage feature id then take names no column has.
+    taken = {str(c).lower() for c in df.columns}
+    geom_name = _unused(("geometry", "geom", "site_geometry"), taken)
+    fid_name = _unused(("fid", "gpkg_fid", "envlink_fid"), taken)
+    geoms = gpd.GeoSeries(_geometries(df), index=df.index, crs="EPSG:4326", name=geom_name)
+    gdf = gpd.GeoDataFrame(pd.concat([df, geoms], axis=1), geometry=geom_name, crs="EPSG:4326")
     # GDAL wants the .gpkg extension: write beside the temporary file, then move onto it.
     staged = path.with_name(path.name + ".gpkg")
     try:
-        gdf.to_file(staged, driver="GPKG", layer=layer, engine="pyogrio")
+        try:
+            gdf.to_file(staged, driver="GPKG", layer=layer, engine="pyogrio",
+                        layer_options={"FID": fid_name, "GEOMETRY_NAME": geom_name})
+        except OSError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - GDAL's field/layer errors are about the table
+            raise InputError(f"Cannot write the GeoPackage layer {layer!r}: {exc}.") from exc
         os.replace(staged, path)
     finally:
         if staged.exists():
@@ -170,6 +189,35 @@ def _check_formats(formats: Sequence[str]) -> tuple[str, ...]:
                 f"got {f!r}.{did_you_mean(f, FORMATS)}"
             )
     return tuple(dict.fromkeys(formats))
+
+
+def check_columns_exportable(columns: Sequence[object], formats: Sequence[str]) -> None:
+    """Raise :class:`InputError` when the columns cannot all be written in ``formats``.
+
+    GeoPackage (SQLite) column names are case-insensitive, so two columns that differ
+    only in case (``fid`` / ``FID``) cannot both be kept there. Run it before a long
+    pipeline so the problem shows at the start, not after the work.
+
+    Examples
+    --------
+    >>> check_columns_exportable(["reef", "Reef"], ["csv"])
+    >>> check_columns_exportable(["reef", "Reef"], ["csv", "gpkg"])
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: The columns 'reef' and 'Reef' differ only in case, which a GeoPackage cannot hold...
+    """
+    if "gpkg" not in formats:
+        return
+    seen: dict[str, str] = {}
+    for col in map(str, columns):
+        key = col.lower()
+        if key in seen:
+            raise InputError(
+                f"The columns {seen[key]!r} and {col!r} differ only in case, which a GeoPackage "
+                "cannot hold (its column names ignore case); rename one, or leave 'gpkg' out of "
+                "the export formats."
+            )
+        seen[key] = col
 
 
 def export_table(
@@ -240,6 +288,7 @@ def export_table(
     ['csv', 'datapackage']
     """
     formats = _check_formats(formats)
+    check_columns_exportable(list(table.columns), formats)
     target = Path(out)
     if target.suffix.lower() in (".csv", ".parquet", ".gpkg"):
         name = name or target.stem
@@ -315,6 +364,8 @@ def export_table(
             if fit is not None:
                 tmp["fit_json"].write_text(_fit_json(fit), encoding="utf-8")
                 tmp["fit_text"].write_text(_fit_text(fit), encoding="utf-8")
-    except (OSError, ImportError) as exc:
+    except OSError as exc:
+        raise InputError(f"Cannot export into {str(target)!r}: {exc.strerror or exc}.") from exc
+    except ImportError as exc:
         raise InputError(f"Cannot export into {str(target)!r}: {exc}") from exc
     return paths

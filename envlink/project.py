@@ -346,7 +346,7 @@ def run_project(
     [[-9.5, '2008-03-01']]
     """
     import envlink
-    from envlink.export import export_table
+    from envlink.export import FORMATS, check_columns_exportable, export_table
     from envlink.tables import read_table_as_written
 
     if not isinstance(project, Project):
@@ -380,6 +380,10 @@ def run_project(
         table = read_table_as_written(project.studies)
         input_columns = [str(c) for c in table.columns]
         check_columns(project, table)
+        try:
+            check_columns_exportable(input_columns, project.section("export").get("formats", FORMATS))
+        except InputError as exc:
+            raise InputError(f"{where(project, 'export')}: {exc}") from exc
         steps.done("read")
         loc = project.section("locate")
         kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}

@@ -225,3 +225,26 @@ def test_file_sha256_matches_hashlib(tmp_path: Path) -> None:
     p.write_bytes(b"[studies]\npath = 't.csv'\n")
     # reference: hashlib.sha256 (Python standard library)
     assert file_sha256(p) == hashlib.sha256(p.read_bytes()).hexdigest()
+
+
+def test_geopackage_keeps_user_geometry_and_fid_columns(tmp_path: Path) -> None:
+    # A user column named 'geometry' or 'fid' is kept: the layer's geometry column and
+    # feature id take other names (GDAL GPKG driver options GEOMETRY_NAME and FID).
+    import pyogrio
+
+    t = pd.DataFrame({"reef": ["Pell Bommie", "Ossel Bank"], "geometry": ["reef flat", "slope"],
+                      "fid": ["7", "x"], "site_lat": [-9.1, np.nan], "site_lon": [-117.2, np.nan]})
+    paths = export_table(t, tmp_path, formats=["csv", "gpkg"])
+    info = pyogrio.read_info(paths["gpkg"])
+    assert info["geometry_name"] == "geom" and info["fid_column"] == "gpkg_fid"
+    assert list(info["fields"][:3]) == ["reef", "geometry", "fid"] and info["features"] == 2
+    _, _, geoms, fields = pyogrio.raw.read(paths["gpkg"])
+    assert fields[1].tolist() == ["reef flat", "slope"] and fields[2].tolist() == ["7", "x"]
+
+
+def test_columns_differing_only_in_case_are_refused_for_geopackage(tmp_path: Path) -> None:
+    t = pd.DataFrame({"fid": ["1"], "FID": ["2"]})
+    with pytest.raises(InputError, match=r"'fid' and 'FID' differ only in case.*leave 'gpkg' out"):
+        export_table(t, tmp_path, formats=["csv", "gpkg"])
+    assert not list(tmp_path.iterdir())  # nothing written
+    assert set(export_table(t, tmp_path, formats=["csv"])) == {"csv", "datapackage"}
