@@ -12,6 +12,7 @@ import io
 import math
 import numbers
 import os
+import re
 import unicodedata
 from collections.abc import Iterable, Sequence
 from pathlib import Path
@@ -241,6 +242,24 @@ def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> P
     return p
 
 
+#: Control characters an Excel worksheet cannot store (XML 1.0 forbids them).
+_EXCEL_ILLEGAL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f]")
+
+
+def _check_excel_text(df: pd.DataFrame, p: Path) -> None:
+    for col in df.columns:
+        values = df[col]
+        if not (pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values)):
+            continue
+        for i, v in enumerate(values.tolist()):
+            if isinstance(v, str) and (m := _EXCEL_ILLEGAL.search(v)):
+                raise InputError(
+                    f"Cannot write table {str(p)!r}: row {i + 1}, column {str(col)!r} holds the "
+                    f"control character U+{ord(m.group()):04X}, which Excel files cannot store; "
+                    "remove it from the input, or write .csv, .tsv or .parquet instead."
+                )
+
+
 def _os_reason(exc: OSError, p: Path) -> str:
     """An OSError in words, without the temporary file's name."""
     reason = exc.strerror or str(exc)
@@ -268,6 +287,8 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
     """
     p = check_output_path(path, force=force)
     suffix = p.suffix.lower()
+    if suffix == ".xlsx":
+        _check_excel_text(df, p)
     try:
         with atomic_path(p) as tmp:
             if suffix == ".csv":

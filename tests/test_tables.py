@@ -143,3 +143,13 @@ def test_parse_numbers_decimal_commas_only_when_unambiguous() -> None:
     assert v.tolist() == [1.234, 12.5, -0.5, 3.0] and not bad.any()
     v, bad = parse_numbers(pd.Series([1.5, None]))
     assert np.isnan(v[1]) and not bad.any()
+
+
+def test_excel_output_names_a_control_character(tmp_path) -> None:
+    # XML 1.0 (section 2.2, Char) excludes most C0 controls, so .xlsx cannot hold them;
+    # a vertical tab pasted from a PDF is the usual one.
+    df = pd.DataFrame({"site": ["ok", "bad\x0bchar"]})
+    with pytest.raises(InputError, match=r"row 2, column 'site' holds the control character U\+000B"):
+        write_table(df, tmp_path / "o.xlsx")
+    assert not (tmp_path / "o.xlsx").exists()
+    write_table(df, tmp_path / "o.csv")  # other formats are fine
