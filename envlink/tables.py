@@ -115,6 +115,25 @@ def _check_header(names: Sequence[object], p: Path) -> None:
         seen[key] = i
 
 
+def _parser_reason(message: str) -> str:
+    """The CSV parser's complaint in words a table's author can act on."""
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
+    if m:
+        want, line, saw = m.groups()
+        return (
+            f"line {line} has {saw} cells but the header has {want}. A cell holding the "
+            "delimiter must be in double quotes; a comma-separated file cannot hold decimal "
+            "commas unquoted (write -8.5, or separate the columns with ';')."
+        )
+    m = re.search(r"EOF inside string starting at row (\d+)", message)
+    if m:
+        return (
+            f"a double quote opened on line {int(m.group(1)) + 1} is never closed; "
+            "close it, or remove the stray quote."
+        )
+    return message.strip()
+
+
 def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.DataFrame:
     """Read a CSV / TSV / Parquet / Excel table.
 
@@ -187,7 +206,9 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
         return pd.read_csv(io.StringIO(text), **kwargs)  # type: ignore[call-overload]
     except InputError:
         raise
-    except (OSError, ValueError, ImportError, pd.errors.ParserError) as exc:
+    except pd.errors.ParserError as exc:
+        raise InputError(f"Cannot read table {str(p)!r}: {_parser_reason(str(exc))}") from exc
+    except (OSError, ValueError, ImportError) as exc:
         raise InputError(f"Cannot read table {str(p)!r}: {exc}") from exc
 
 

@@ -153,3 +153,15 @@ def test_excel_output_names_a_control_character(tmp_path) -> None:
         write_table(df, tmp_path / "o.xlsx")
     assert not (tmp_path / "o.xlsx").exists()
     write_table(df, tmp_path / "o.csv")  # other formats are fine
+
+
+def test_ragged_csv_names_the_line_and_the_likely_cause(tmp_path) -> None:
+    # a decimal comma in a comma-separated file splits a cell in two
+    p = tmp_path / "t.csv"
+    p.write_text("lat,lon,year\n-8.5,-117.2,2001\n-8,5,-117.2,2001\n")
+    with pytest.raises(InputError, match=r"line 3 has 4 cells but the header has 3\. .*decimal commas"):
+        read_table(p, as_text=True)
+    q = tmp_path / "q.csv"
+    q.write_text('lat,lon\n1,2\n"3,4\n')
+    with pytest.raises(InputError, match=r"a double quote opened on line 3 is never closed"):
+        read_table(q, as_text=True)
