@@ -17,11 +17,21 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "grid",
         help="explain what a grid file holds and how envlink reads it",
         description=(
-            "Explain a gridded raster (netCDF, Zarr, GeoTIFF, or several files combined along "
-            "time): its variables, the axes found and how, the conventions applied on reading, "
-            "the calendar, time coverage, step and gaps, the spatial extent and resolution, the "
-            "fraction of masked cells, the storage chunking, and warnings."
+            "Explain a gridded raster (netCDF, Zarr, GeoTIFF, or several files combined\n"
+            "along time): its variables, the axes found and how, the conventions applied on\n"
+            "reading, the calendar, time coverage, step and gaps, the spatial extent and\n"
+            "resolution, the fraction of masked cells, the storage chunking, and warnings.\n"
+            "The description goes to stdout; nothing is written to disk."
         ),
+        epilog=(
+            "examples:\n"
+            "  envlink grid sst_monthly.nc\n"
+            "  envlink grid 'sst_daily_*.nc' --var analysed_sst --json > sst_daily.json\n"
+            "  envlink grid air.tif --band-dates 2001-01-01,2001-02-01 --units degC\n\n"
+            "Exit codes: 0 described, 2 a file that cannot be read as a grid or a bad option\n"
+            "(the message says which and why), 1 unexpected failure. See docs/grids.md."
+        ),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument("files", nargs="+", metavar="FILE",
                    help="grid file, Zarr store or glob pattern; several are combined along time")

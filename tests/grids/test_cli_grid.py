@@ -67,3 +67,10 @@ def test_bad_calendar_names_the_option(tmp_path, capsys):
     assert main(["grid", str(p), "--calendar", "julien"]) == 2
     err = capsys.readouterr().err
     assert "'julien'" in err and "is not a CF calendar" in err and "--calendar on the command line" in err
+
+
+def test_help_has_examples_and_exit_codes(capsys):
+    assert main(["grid", "--help"]) == 0
+    out = capsys.readouterr().out
+    assert "examples:" in out and "Exit codes: 0 described, 2 a file" in out
+    assert max(len(line) for line in out.splitlines()) <= 100  # wrapped for a terminal
