@@ -209,7 +209,10 @@ def _components(body: str, field: str) -> list[tuple[str, str | None]]:
             raise Unreadable(field, f"unexpected {body[pos]!r} in {body!r}")
         m = _COMP.match(body, sep.end())
         if not m:
-            raise Unreadable(field, f"unexpected {body[sep.end():]!r} in {body!r}")
+            rest = body[sep.end():]
+            if not rest:  # the text ends in a separator: '8.5-', '12:'
+                raise Unreadable(field, f"{body!r} ends in {sep.group(0).strip()!r} with no number after it")
+            raise Unreadable(field, f"unexpected {rest!r} in {body!r}")
         if len(parts) == 3:
             raise Unreadable(field, f"more than three parts (degrees, minutes, seconds) in {body!r}")
         if ch == "-" and pre and not post:

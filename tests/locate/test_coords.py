@@ -384,6 +384,9 @@ ERRORS = [
     # the seconds mark on the second part
     (parse_angle, ("12°30\"", "lat"), "unreadable_coordinate", "lat",
      ["part 2", "should be minutes"]),
+    # a trailing separator with nothing after it
+    (parse_angle, ("8.5-", "lat"), "unreadable_coordinate", "lat",
+     ["'8.5-' ends in '-' with no number after it"]),
 ]
 
 
