@@ -386,9 +386,19 @@ def run_project(
             raise InputError(f"{where(project, 'export')}: {exc}") from exc
         steps.done("read")
         loc = project.section("locate")
+        if not any(loc.get(k) for k in ("lat", "coords", "site", "period", "start")):
+            raise InputError(
+                f"{where(project, 'locate')}: the [locate] section must name the studies "
+                "table's columns to read: lat and lon, coords, site (with gazetteer), and "
+                'period or start and end; e.g. [locate] lat = "latitude", lon = "longitude", '
+                'period = "sampled".'
+            )
         kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}
         gazetteer = envlink.read_gazetteer(project.gazetteer) if project.gazetteer else None
-        table = envlink.locate(table, gazetteer=gazetteer, progress=progress, **kwargs)
+        try:
+            table = envlink.locate(table, gazetteer=gazetteer, progress=progress, **kwargs)
+        except InputError as exc:
+            raise InputError(f"{where(project, 'locate')} [locate]: {exc}") from exc
         steps.done("locate")
         provenance: dict[str, Any] = {"project": {"title": project.title,
                                                   "file": project.source.name if project.source else None},

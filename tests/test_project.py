@@ -367,3 +367,13 @@ def test_formula_error_names_the_moderators_line(tmp_path: Path) -> None:
     p = _project(tmp_path, text)
     with pytest.raises(InputError, match=rf"p\.toml, line {_line_of(text, 'moderators = ')}: .*'dpeth'"):
         run_project(p, progress=False)
+
+
+def test_locate_section_missing_or_incomplete_is_named(tmp_path: Path) -> None:
+    p = _project(tmp_path, '[studies]\npath = "studies.csv"\n[export]\nformats = ["csv"]\nreport = false\n')
+    with pytest.raises(InputError, match=r"p\.toml: the \[locate\] section must name the studies table's columns"):
+        run_project(p, progress=False)
+    text = BASE.replace('lon = "lon"\n', "")
+    q = _project(tmp_path, text, name="q.toml")
+    with pytest.raises(InputError, match=rf"q\.toml, line {_line_of(text, '[locate]')} \[locate\]: .*'lon' was not given"):
+        run_project(q, progress=False)
