@@ -109,7 +109,7 @@ def _write_parquet(df: pd.DataFrame, path: Path, descriptor: Mapping[str, Any], 
         meta = {k: str(field[k]) for k in ("description", "unit") if k in field}
         fields.append(pa.field(field["name"], arr.type, metadata=meta or None))
         arrays.append(arr)
-    meta = {b"envlink": json.dumps(descriptor, ensure_ascii=False).encode("utf-8")}
+    meta = {"envlink": json.dumps(descriptor, ensure_ascii=False)}
     table = pa.Table.from_arrays(arrays, schema=pa.schema(fields, metadata=meta))
     pq.write_table(table, path)
 

@@ -260,6 +260,7 @@ def run_project(
             "missing) with --out DIR or [project] out."
         )
     targets = _targets(project, out_dir)
+    check_files(project, outputs=targets.values())
     existing = [str(p) for p in targets.values() if p.exists()]
     if existing and not force:
         raise InputError(
@@ -270,7 +271,6 @@ def run_project(
     covs = project.covariates
     steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
                    + bool(targets.get("report")), progress)  # fmt: skip
-    check_files(project)
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -295,10 +295,12 @@ def run_project(
                 'period or start and end; e.g. [locate] lat = "latitude", lon = "longitude", '
                 'period = "sampled".'
             )
+        from envlink.locate.sites import locate as locate_stage
+
         kwargs = {k: v for k, v in loc.items() if k != "gazetteer"}
         gazetteer = envlink.read_gazetteer(project.gazetteer) if project.gazetteer else None
         try:
-            table = envlink.locate(table, gazetteer=gazetteer, progress=progress, **kwargs)
+            table = locate_stage(table, gazetteer=gazetteer, progress=progress, **kwargs)
         except InputError as exc:
             raise InputError(f"{where(project, 'locate')} [locate]: {exc}") from exc
         steps.done("locate")

@@ -62,9 +62,10 @@ def _fmt(value: object, digits: int = 4) -> str:
     if value is None:
         return "—"
     if isinstance(value, (float, np.floating)):
-        if not np.isfinite(value):
+        fv = float(value)
+        if not np.isfinite(fv):
             return "—"
-        return f"{value:.{digits}g}" if abs(value) < 1e-3 or abs(value) >= 1e5 else f"{value:.{digits}f}"
+        return f"{fv:.{digits}g}" if abs(fv) < 1e-3 or abs(fv) >= 1e5 else f"{fv:.{digits}f}"
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_fmt(v, digits) for v in value) + "]"
     return _e(value)
@@ -117,7 +118,7 @@ def _locate_section(table: pd.DataFrame) -> str:
     out += _table(["status", "rows"], rows)
     counts = _flag_counts(table.get("locate_flags", pd.Series(dtype=str)))
     if counts:
-        out += _table(["QA flag", "rows"], sorted(counts.items(), key=lambda kv: -kv[1]))
+        out += _table(["QA flag", "rows"], counts.most_common())
     rejected = table[status == "rejected"]
     if len(rejected) and "locate_notes" in table.columns:
         items = "".join(
@@ -137,7 +138,7 @@ def _covariate_section(table: pd.DataFrame, name: str, units: str) -> str:
     )
     flags = _flag_counts(table.get(f"{name}_flags", pd.Series(dtype=str)))
     if flags:
-        out += _table(["QA flag", "rows"], sorted(flags.items(), key=lambda kv: (-kv[1], kv[0])))
+        out += _table(["QA flag", "rows"], flags.most_common())
         out += _figure(plots.flag_bars(flags, title=f"QA flags of {name}"),
                        f"How many rows carry each QA flag of {name}.")
     dist = pd.to_numeric(table.get(f"{name}_distance_km", pd.Series(dtype=float)), errors="coerce")
