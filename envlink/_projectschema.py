@@ -296,8 +296,8 @@ def where(project: Any, *path: Any) -> str:
     return str(project.source)
 
 
-def check_files(project: Any) -> None:
-    """Every file the project names exists (the key and its line are named if not)."""
+def check_files(project: Any, outputs: Any = ()) -> None:
+    """Every file the project names exists, and none is one of ``outputs`` (key and line named)."""
     files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
     if project.gazetteer is not None:
         files.append((("locate", "gazetteer"), project.gazetteer))
@@ -312,6 +312,17 @@ def check_files(project: Any) -> None:
                 f"{where(project, *key)}: the key {'.'.join(key)!r} names {str(path)!r}, which "
                 "does not exist (relative paths are relative to the project file's folder)."
             )
+    if outputs:
+        inputs = {path.resolve(): key for key, path in files}
+        inputs[Path(project.source).resolve()] = ("project file",)
+        for out in outputs:
+            key = inputs.get(Path(out).resolve())
+            if key is not None:
+                raise InputError(
+                    f"{where(project, *key) if key != ('project file',) else project.source}: the "
+                    f"output {str(out)!r} is also an input ({'.'.join(key)}); the run would "
+                    "overwrite it. Choose another output folder (--out DIR) or [export] name."
+                )
 
 
 def check_columns(project: Any, table: Any) -> None:

@@ -377,3 +377,14 @@ def test_locate_section_missing_or_incomplete_is_named(tmp_path: Path) -> None:
     q = _project(tmp_path, text, name="q.toml")
     with pytest.raises(InputError, match=rf"q\.toml, line {_line_of(text, '[locate]')} \[locate\]: .*'lon' was not given"):
         run_project(q, progress=False)
+
+
+def test_output_that_is_an_input_is_refused_even_with_force(tmp_path: Path) -> None:
+    # studies.csv in the output folder under the export name would be overwritten
+    text = BASE.replace('[export]\n', '[export]\nname = "studies"\n')
+    p = _project(tmp_path, text)
+    before = (tmp_path / "studies.csv").read_bytes()
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'path = ')}: the output .*studies\.csv' is also "
+                                         r"an input \(studies\.path\)"):
+        run_project(p, out=tmp_path, force=True, progress=False)
+    assert (tmp_path / "studies.csv").read_bytes() == before
