@@ -128,7 +128,8 @@ def summary(located: Any, out: str) -> str:
     for cell in located["locate_flags"].tolist():
         if cell:
             flags.update(cell.split(";"))
-    lines = [f"envlink sites: {len(located)} rows -> {out}"]
+    n = len(located)
+    lines = [f"envlink sites: {n} row{'' if n == 1 else 's'} -> {out}"]
     lines += [f"  {s:<9} {status.get(s, 0):>7}" for s in ("ok", "flagged", "rejected")]
     if flags:
         width = max(len(f) for f in flags)

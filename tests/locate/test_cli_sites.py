@@ -212,3 +212,11 @@ def test_output_folder_and_duplicate_columns_exit_2(tmp_path: Path, capsys) -> N
     assert main(["sites", str(src), "-o", str(tmp_path / "p.csv"), "--lat", "lat", "--lon", "lon"]) == 2
     assert "columns 1 and 3 are both named 'lat'" in capsys.readouterr().err
     assert not (tmp_path / "p.csv").exists()
+
+
+def test_summary_counts_one_row_in_the_singular(tmp_path: Path, capsys) -> None:
+    src = tmp_path / "t.txt"
+    src.write_text("lat\tlon\n-8,5\t-117,2\n")  # a .txt table, tab-separated, decimal commas
+    assert main(["sites", str(src), "-o", str(tmp_path / "o.tsv"), "--lat", "lat", "--lon", "lon"]) == 0
+    assert "envlink sites: 1 row -> " in capsys.readouterr().err
+    assert read_table(tmp_path / "o.tsv", as_text=True).loc[0, "site_lat"] == "-8.5"
