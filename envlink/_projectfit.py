@@ -70,6 +70,7 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
     numeric = _numeric_columns(project, table, needed, formula or "", _label_columns(model))
     ok = np.ones(len(table), dtype=bool)
     lacking: dict[str, int] = {}
+    missing: dict[str, np.ndarray] = {}
     if "locate_status" in table:
         ok &= table["locate_status"].astype(str).to_numpy() != "rejected"
         lacking["rejected by locate"] = int((~ok).sum())
@@ -80,6 +81,7 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
             s = table[col]
             has = (s.notna() & (s.astype(str).str.strip() != "")).to_numpy()
         lacking[repr(col)] = int((~has).sum())
+        missing[col] = ~has
         ok &= has
     if len(table) == 0:
         raise InputError(
@@ -92,14 +94,15 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
         for col in dict.fromkeys(needed):
             flags = f"{col}_flags"
             if lacking.get(repr(col)) and flags in table:
-                common = table[flags].astype(str).replace("", np.nan).dropna().value_counts()
+                common = table.loc[missing[col], flags].astype(str).replace("", np.nan).dropna().value_counts()
                 if len(common):
                     hint = f" Most rows lacking {col!r} are flagged {common.index[0]!r} (see {flags})."
                     break
         raise InputError(
             f"{where(project, 'model')}: only {int(ok.sum())} of {len(table)} rows have a finite "
             f"effect, a positive variance and every moderator ({', '.join(needed)}); the model "
-            f"needs at least 3. Rows lacking each: {counts or 'none'}.{hint}"
+            f"needs at least 3. "
+            + (f"Rows lacking each: {counts}.{hint}" if counts else f"The table has only {len(table)}.")
         )
     data = table.loc[ok].reset_index(drop=True)
     for col, values in numeric.items():  # numbers read as text from the studies table

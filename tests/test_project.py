@@ -388,3 +388,10 @@ def test_output_that_is_an_input_is_refused_even_with_force(tmp_path: Path) -> N
                                          r"an input \(studies\.path\)"):
         run_project(p, out=tmp_path, force=True, progress=False)
     assert (tmp_path / "studies.csv").read_bytes() == before
+
+
+def test_too_few_rows_in_a_tiny_table(tmp_path: Path) -> None:
+    p = _project(tmp_path)
+    (tmp_path / "studies.csv").write_text("\n".join(STUDIES.splitlines()[:3]) + "\n")
+    with pytest.raises(InputError, match=r"only 2 of 2 rows .* The table has only 2\.$"):
+        run_project(p, progress=False)
