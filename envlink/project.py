@@ -133,6 +133,12 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     from envlink.export import file_sha256
 
     p = Path(path)
+    if p.is_dir():
+        found = sorted(q.name for q in p.glob("*.toml"))[:5]
+        raise InputError(
+            f"Cannot read project file {str(p)!r}: it is a folder; give the project's .toml file"
+            + (f" (the folder holds {', '.join(found)})." if found else ".")
+        )
     if not p.is_file():
         raise InputError(f"Cannot read project file {str(p)!r}: no such file.")
     raw = p.read_bytes()
@@ -142,7 +148,11 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     except UnicodeDecodeError as exc:
         raise InputError(f"Cannot read project file {str(p)!r}: not UTF-8 text ({exc}).") from exc
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{p}: not valid TOML: {exc}.") from exc
+        hint = ""
+        if p.suffix.lower() in (".csv", ".tsv", ".txt", ".xlsx", ".parquet", ".nc"):
+            hint = (" envlink run takes a TOML project file (see docs/project-file.md); "
+                    "a table goes in its [studies] path.")
+        raise InputError(f"{p}: not valid TOML: {exc}.{hint}") from exc
     validate(data, text, str(p))
     root = p.resolve().parent
     proj = data.get("project", {})

@@ -395,3 +395,11 @@ def test_too_few_rows_in_a_tiny_table(tmp_path: Path) -> None:
     (tmp_path / "studies.csv").write_text("\n".join(STUDIES.splitlines()[:3]) + "\n")
     with pytest.raises(InputError, match=r"only 2 of 2 rows .* The table has only 2\.$"):
         run_project(p, progress=False)
+
+
+def test_project_path_that_is_a_folder_or_a_table(tmp_path: Path) -> None:
+    p = _project(tmp_path)
+    with pytest.raises(InputError, match=r"it is a folder; give the project's \.toml file \(the folder holds p\.toml\)"):
+        load_project(tmp_path)
+    with pytest.raises(InputError, match=r"not valid TOML: .* takes a TOML project file"):
+        load_project(p.parent / "studies.csv")
