@@ -38,6 +38,15 @@ PRECISION_COLUMNS = ("precision_km", "site_precision_km", "uncertainty_km")
 
 _GEO_SUFFIXES = (".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gml", ".kml")
 _PUNCT = re.compile(r"[\W_]+", re.UNICODE)
+#: Invisible format characters left by copy-paste (zero-width space/joiners, word
+#: joiner, BOM, soft hyphen, direction marks): removed before any comparison.
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
+_WHITE = re.compile(r"\s+", re.UNICODE)
+
+
+def _plain_name(name: str) -> str:
+    """A name without invisible characters, its white space (no-break too) one plain space."""
+    return _WHITE.sub(" ", str(name).translate(_INVISIBLE)).strip()
 
 
 class SiteNameError(InputError):
@@ -130,7 +139,7 @@ def normalise_name(name: str) -> str:
     >>> normalise_name("  Récif  d'Ossë-Nord ")
     'recif d osse nord'
     """
-    decomposed = unicodedata.normalize("NFKD", str(name))
+    decomposed = unicodedata.normalize("NFKD", str(name).translate(_INVISIBLE))
     stripped = "".join(ch for ch in decomposed if not unicodedata.combining(ch))
     return _PUNCT.sub(" ", stripped.casefold()).strip()
 
@@ -152,7 +161,7 @@ class Gazetteer:
         self._exact: dict[str, list[_Entry]] = {}
         self._folded: dict[str, list[_Entry]] = {}
         for entry in self.entries:
-            self._exact.setdefault(entry.name, []).append(entry)
+            self._exact.setdefault(_plain_name(entry.name), []).append(entry)
             self._folded.setdefault(normalise_name(entry.name), []).append(entry)
         self._keys = list(self._folded)
 
@@ -199,7 +208,7 @@ class Gazetteer:
         ('Kestrel Reef', 'casefold', -8.5, 160.25, ('site_name_casefold',))
         """
         query = str(name).strip()
-        found = self._exact.get(query)
+        found = self._exact.get(_plain_name(query))
         if found:
             return self._resolve(query, [(e, 100.0) for e in found], "exact")
         key = normalise_name(query)

@@ -204,3 +204,12 @@ def test_polygon_drawn_across_the_antimeridian_is_kept_but_flagged() -> None:
     # (Geod joins vertices by geodesics, not parallels, so two 0.5° parts and one 1° part
     # differ by ~1e-5 relative: geometry, not error)
     assert_allclose(good.precision_km, math.sqrt(abs(area) / math.pi) / 1000, rtol=1e-4)
+
+
+@pytest.mark.parametrize("reported", ["Kestle\u00a0Reef", "Kestle Reef\u200b", "Kes\u200btle Reef", "\ufeffKestle  Reef"])
+def test_invisible_and_no_break_spaces_match_exactly(reported: str) -> None:
+    # copy-paste from PDFs and web pages leaves no-break and zero-width spaces (common
+    # practice); they are not a spelling difference
+    gz = read_gazetteer(pd.DataFrame({"name": ["Kestle Reef"], "lat": ["-8.664"], "lon": ["-117.8755"]}))
+    m = gz.match(reported)
+    assert (m.name, m.method, m.flags) == ("Kestle Reef", "exact", ())
