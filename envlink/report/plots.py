@@ -6,15 +6,17 @@ function is pure (no file I/O); :mod:`envlink.report.html` embeds the figures.
 
 from __future__ import annotations
 
+import functools
 import io
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
+from typing import Any, TypeVar
 
 import matplotlib
+import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
+_F = TypeVar("_F", bound=Callable[..., Any])
 
 __all__ = [
     "figure_png",
@@ -34,7 +36,27 @@ _SOFT = "#8d99ae"
 _STATUS_COLOURS = {"ok": _ACCENT, "flagged": "#edae49", "rejected": _WARM}
 
 
-def _style(ax: plt.Axes) -> None:
+def _plain_text(func: _F) -> _F:
+    """Draw with user text taken literally: a '$' in a study label is not mathtext.
+
+    Figures are made with the object API (no pyplot), so importing this module never
+    changes the user's matplotlib backend or global state.
+    """
+
+    @functools.wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        with matplotlib.rc_context({"text.parse_math": False}):
+            return func(*args, **kwargs)
+
+    return wrapper  # type: ignore[return-value]
+
+
+def _new(figsize: tuple[float, float]) -> tuple[Figure, Axes]:
+    fig = Figure(figsize=figsize)
+    return fig, fig.subplots()
+
+
+def _style(ax: Axes) -> None:
     ax.grid(True, color="#e6e6e6", linewidth=0.6)
     ax.set_axisbelow(True)
     for side in ("top", "right"):
@@ -42,13 +64,14 @@ def _style(ax: plt.Axes) -> None:
 
 
 def figure_png(fig: Figure, *, dpi: int = 110) -> bytes:
-    """Render ``fig`` to PNG bytes and close it."""
+    """Render ``fig`` to PNG bytes."""
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight")
-    plt.close(fig)
+    with matplotlib.rc_context({"text.parse_math": False}):
+        fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight")
     return buf.getvalue()
 
 
+@_plain_text
 def site_map(
     lat: np.ndarray,
     lon: np.ndarray,
@@ -60,7 +83,7 @@ def site_map(
     field_label: str = "",
 ) -> Figure:
     """Sites (coloured by locate status) over a 2-D covariate field (time mean)."""
-    fig, ax = plt.subplots(figsize=(7.5, 5.5))
+    fig, ax = _new((7.5, 5.5))
     if field is not None and field_lat is not None and field_lon is not None:
         mesh = ax.pcolormesh(field_lon, field_lat, field, shading="nearest", cmap="viridis")
         fig.colorbar(mesh, ax=ax, label=field_label, shrink=0.8)
@@ -85,11 +108,12 @@ def site_map(
     return fig
 
 
+@_plain_text
 def histogram(values: np.ndarray, *, label: str, title: str) -> Figure:
     """Distribution of one column's finite values."""
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
-    fig, ax = plt.subplots(figsize=(5.5, 3.4))
+    fig, ax = _new((5.5, 3.4))
     if v.size:
         ax.hist(v, bins=min(30, max(5, int(np.sqrt(v.size)) + 1)), color=_ACCENT, alpha=0.85,
                 edgecolor="white")
@@ -102,10 +126,11 @@ def histogram(values: np.ndarray, *, label: str, title: str) -> Figure:
     return fig
 
 
+@_plain_text
 def flag_bars(counts: Mapping[str, int], *, title: str) -> Figure:
     """Horizontal bars: how many rows carry each QA flag."""
     items = sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))[:25]
-    fig, ax = plt.subplots(figsize=(6.0, 0.35 * max(len(items), 2) + 1.0))
+    fig, ax = _new((6.0, 0.35 * max(len(items), 2) + 1.0))
     if items:
         names = [k for k, _ in items][::-1]
         vals = [v for _, v in items][::-1]
@@ -121,6 +146,7 @@ def flag_bars(counts: Mapping[str, int], *, title: str) -> Figure:
     return fig
 
 
+@_plain_text
 def bubble_plot(
     x: np.ndarray,
     y: np.ndarray,
@@ -139,7 +165,7 @@ def bubble_plot(
 
     The fitted line carries its confidence band (darker) and prediction band (lighter).
     """
-    fig, ax = plt.subplots(figsize=(6.5, 4.5))
+    fig, ax = _new((6.5, 4.5))
     w = np.asarray(weight, dtype=float)
     size = 400.0 * w / np.nanmax(w) if np.isfinite(w).any() and np.nanmax(w) > 0 else 30.0
     ax.fill_between(line_x, pi_low, pi_high, color=_ACCENT, alpha=0.12, label="prediction band")
@@ -155,6 +181,7 @@ def bubble_plot(
     return fig
 
 
+@_plain_text
 def forest_plot(
     labels: Sequence[str],
     y: np.ndarray,
@@ -172,10 +199,12 @@ def forest_plot(
 
     y = np.asarray(y, dtype=float)
     se = np.sqrt(np.asarray(v, dtype=float))
-    order = np.argsort(y)[:max_rows] if y.size > max_rows else np.arange(y.size)
+    # beyond max_rows, the most precise effects (smallest SE), kept in table order: a
+    # subset by value (e.g. the lowest effects) would misrepresent the spread
+    order = np.sort(np.argsort(se, kind="stable")[:max_rows]) if y.size > max_rows else np.arange(y.size)
     zq = norm.ppf(0.5 + level / 2)
     n = order.size
-    fig, ax = plt.subplots(figsize=(6.8, 0.18 * n + 1.8))
+    fig, ax = _new((6.8, 0.18 * n + 1.8))
     pos = np.arange(n, 0, -1)
     ax.hlines(pos, y[order] - zq * se[order], y[order] + zq * se[order], color=_SOFT, linewidth=1)
     w = 1.0 / np.maximum(se[order] ** 2, 1e-12)
@@ -190,12 +219,13 @@ def forest_plot(
     ax.set_xlabel(xlabel)
     title = "Effects with confidence intervals"
     if y.size > max_rows:
-        title += f" ({max_rows} of {y.size} shown)"
+        title += f" (the {max_rows} most precise of {y.size} shown)"
     ax.set_title(title)
     _style(ax)
     return fig
 
 
+@_plain_text
 def funnel_plot(
     y: np.ndarray,
     v: np.ndarray,
@@ -212,7 +242,7 @@ def funnel_plot(
     """
     y = np.asarray(y, dtype=float)
     se = np.sqrt(np.asarray(v, dtype=float))
-    fig, ax = plt.subplots(figsize=(5.8, 4.5))
+    fig, ax = _new((5.8, 4.5))
     top = float(np.nanmax(se)) * 1.05 if se.size else 1.0
     s_line = np.linspace(0.0, top, 50)
     ax.plot(pooled - 1.96 * s_line, s_line, color=_SOFT, linestyle=":", label="pseudo 95% limits")
@@ -231,9 +261,10 @@ def funnel_plot(
     return fig
 
 
+@_plain_text
 def residual_plot(fitted: np.ndarray, residual: np.ndarray, *, ylabel: str) -> Figure:
     """Residuals against fitted values, with a zero line and ±2 guides for standardised ones."""
-    fig, ax = plt.subplots(figsize=(5.8, 4.0))
+    fig, ax = _new((5.8, 4.0))
     ax.scatter(fitted, residual, s=18, color=_INK, alpha=0.75)
     ax.axhline(0.0, color=_SOFT)
     if "standardised" in ylabel:

@@ -123,3 +123,33 @@ def test_report_renders_in_headless_chromium(tmp_path) -> None:
     assert "data-js-errors" not in body.group(0)
     console_errors = [ln for ln in proc.stderr.splitlines() if "CONSOLE" in ln and "ERROR" in ln]
     assert not console_errors, console_errors
+
+
+def test_dollar_signs_in_user_text_are_literal() -> None:
+    # matplotlib reads "$...$" as mathtext; a study label such as "Reef $\\alpha$ survey"
+    # or an unknown command like "\\foo" between dollars must not break the report
+    t = _table().assign(study=lambda d: [f"Reef ${i}\\foo$ survey" for i in range(len(d))])
+    page = render_report(table=t, fit=_fit(t), covariates=["sst_anom"], moderator="sst_anom",
+                         label="study", title="Costs $5-$10 \\foo")
+    assert "Costs $5-$10 \\foo" in page
+
+
+def test_importing_the_report_leaves_the_backend_alone() -> None:
+    # the report draws with matplotlib's object API; it must not switch a user's backend
+    code = ("import matplotlib; matplotlib.use('svg'); import envlink.report.plots, envlink.report; "
+            "print(matplotlib.get_backend())")
+    import sys
+
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "svg"
+
+
+def test_forest_plot_subset_is_the_most_precise_effects() -> None:
+    from envlink.report import plots
+
+    y = np.arange(100, dtype=float)
+    v = np.linspace(1.0, 0.01, 100)  # the last effects are the most precise
+    fig = plots.forest_plot([f"s{i}" for i in range(100)], y, v, max_rows=10)
+    ax = fig.axes[0]
+    assert [t.get_text() for t in ax.get_yticklabels()] == [f"s{i}" for i in range(90, 100)]
+    assert "the 10 most precise of 100 shown" in ax.get_title()
