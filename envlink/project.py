@@ -288,6 +288,15 @@ def run_project(
             f"Cannot create the output folder {str(out_dir)!r}: {exc.strerror or exc}. "
             "Choose another folder with --out DIR."
         ) from exc
+    try:  # a read-only folder is found now, not after the work
+        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=out_dir)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise InputError(
+            f"Cannot write in the output folder {str(out_dir)!r}: {exc.strerror or exc}. "
+            "Choose another folder with --out DIR."
+        ) from exc
     try:
         table = read_table_as_written(project.studies)
         input_columns = [str(c) for c in table.columns]

@@ -403,3 +403,22 @@ def test_project_path_that_is_a_folder_or_a_table(tmp_path: Path) -> None:
         load_project(tmp_path)
     with pytest.raises(InputError, match=r"not valid TOML: .* takes a TOML project file"):
         load_project(p.parent / "studies.csv")
+
+
+def test_read_only_output_folder_is_found_before_the_work(tmp_path: Path, monkeypatch, capsys) -> None:
+    import tempfile
+
+    p = _project(tmp_path)
+    (tmp_path / "ro").mkdir()
+    real = tempfile.mkstemp
+
+    def refuse(*args, **kwargs):
+        if str(kwargs.get("dir", "")).endswith("ro"):
+            raise PermissionError(13, "Permission denied")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    assert main(["run", str(p), "--out", str(tmp_path / "ro"), "--no-progress"]) == 2
+    err = capsys.readouterr().err
+    assert "Cannot write in the output folder" in err and "Permission denied" in err
+    assert "located:" not in err  # no work was done
