@@ -13,6 +13,7 @@ import math
 import numbers
 import os
 import re
+import tempfile
 import unicodedata
 from collections.abc import Iterable, Sequence
 from pathlib import Path
@@ -236,7 +237,7 @@ def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> P
     """Check, before any work, that a table can be written at ``path``.
 
     Raises :class:`InputError` for an unknown extension, a path that is a folder,
-    or an existing file without ``force``.
+    an existing file without ``force``, or a folder where no file can be created.
 
     Examples
     --------
@@ -260,6 +261,16 @@ def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> P
         )
     if p.exists() and not force:
         raise InputError(f"{str(p)!r} exists; pass --force to overwrite it.")
+    folder = p.parent
+    while not folder.exists() and folder != folder.parent:
+        folder = folder.parent
+    try:  # a read-only or missing location is found before any work is done
+        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=folder)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise InputError(f"Cannot write {str(p)!r}: cannot create a file in {str(folder)!r} ({reason}).") from exc
     return p
 
 

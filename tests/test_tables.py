@@ -9,6 +9,7 @@ import pytest
 from envlink.errors import InputError
 from envlink.tables import (
     cell_text,
+    check_output_path,
     parse_numbers,
     read_table,
     read_table_as_written,
@@ -165,3 +166,15 @@ def test_ragged_csv_names_the_line_and_the_likely_cause(tmp_path) -> None:
     q.write_text('lat,lon\n1,2\n"3,4\n')
     with pytest.raises(InputError, match=r"a double quote opened on line 3 is never closed"):
         read_table(q, as_text=True)
+
+
+def test_check_output_path_probes_the_folder(tmp_path, monkeypatch) -> None:
+    import tempfile
+
+    def refuse(*args, **kwargs):
+        raise PermissionError(1, "Operation not permitted")
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    with pytest.raises(InputError, match=r"cannot create a file in '.*' \(Operation not permitted\)"):
+        check_output_path(tmp_path / "new" / "o.csv")
+    assert not (tmp_path / "new").exists()  # the check creates nothing
