@@ -390,6 +390,11 @@ def require_columns(df: pd.DataFrame, columns: Iterable[str | None], *, what: st
     """
     have = [str(c) for c in df.columns]
     for col in columns:
+        if col is not None and not have:
+            raise InputError(
+                f"The {what} has no column {col!r}: it has no columns at all (an empty file or "
+                "sheet? Excel tables are read from the first sheet)."
+            )
         if col is not None and col not in have:
             listing = ", ".join(repr(c) for c in have[:20])
             raise InputError(

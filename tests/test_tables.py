@@ -178,3 +178,8 @@ def test_check_output_path_probes_the_folder(tmp_path, monkeypatch) -> None:
     with pytest.raises(InputError, match=r"cannot create a file in '.*' \(Operation not permitted\)"):
         check_output_path(tmp_path / "new" / "o.csv")
     assert not (tmp_path / "new").exists()  # the check creates nothing
+
+
+def test_require_columns_on_a_table_without_columns() -> None:
+    with pytest.raises(InputError, match=r"no column 'lat': it has no columns at all \(an empty file or sheet"):
+        require_columns(pd.DataFrame(), ["lat"])
