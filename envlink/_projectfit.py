@@ -18,6 +18,9 @@ from envlink.errors import InputError
 
 __all__ = ["fit_model"]
 
+_WHITE = re.compile(r"\s+")
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
+
 
 def _label_columns(model: Mapping[str, Any]) -> set[str]:
     """Columns the model uses as labels (kept as text)."""
@@ -107,6 +110,9 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
     data = table.loc[ok].reset_index(drop=True)
     for col, values in numeric.items():  # numbers read as text from the studies table
         data[col] = values[ok]
+    for col in dict.fromkeys(needed):  # labels and categories: white space is not a level
+        if col not in numeric:
+            data[col] = [_WHITE.sub(" ", str(v).translate(_INVISIBLE)).strip() for v in data[col].tolist()]
     options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
     reg = envlink.MetaRegression(moderators=formula, **options)
     try:
@@ -114,7 +120,5 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
     except InputError as exc:
         key = "moderators" if formula else None
         raise InputError(f"{where(project, 'model', *([key] if key else []))}: {exc}") from exc
-    used = table.loc[ok]
-    egger = envlink.egger_test(pd.to_numeric(used[effect]).to_numpy(dtype=float),
-                               pd.to_numeric(used[variance]).to_numpy(dtype=float))  # fmt: skip
+    egger = envlink.egger_test(numeric[effect][ok], numeric[variance][ok])
     return fit, ok, egger

@@ -422,3 +422,17 @@ def test_read_only_output_folder_is_found_before_the_work(tmp_path: Path, monkey
     err = capsys.readouterr().err
     assert "Cannot write in the output folder" in err and "Permission denied" in err
     assert "located:" not in err  # no work was done
+
+
+def test_category_labels_differing_only_in_white_space_are_one_level(tmp_path: Path) -> None:
+    # "belt" and "belt\u00a0" look the same in a spreadsheet; they are one category
+    text = BASE.replace('moderators = "depth"', 'moderators = "C(method)"')
+    p = _project(tmp_path, text)
+    rows = STUDIES.splitlines()
+    methods = ["belt", "belt\u00a0", " belt ", "quadrat", "quadrat\u200b", "quadrat"]
+    body = [f"{r},{m}" for r, m in zip(rows[1:], methods, strict=True)]
+    (tmp_path / "studies.csv").write_text("\n".join([rows[0] + ",method", *body]) + "\n")
+    result = run_project(p, progress=False)
+    terms = [c["term"] for c in result.fit.to_dict()["coefficients"]]
+    assert len(terms) == 2 and terms[0] == "intercept"  # one contrast: belt vs quadrat
+    assert result.table["method"].tolist() == methods  # the output keeps the cells as written
