@@ -193,14 +193,18 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
                 f"Cannot read table {str(p)!r}: the file is empty; expected a header row "
                 "with the column names, then one row per line."
             )
-        first = text.split("\n", 1)[0]
+        first = re.split(r"\r\n|\r|\n", text, maxsplit=1)[0]
         if suffix == ".tsv" or "\t" in first:
             sep = "\t"
         elif first.count(";") > first.count(","):
             sep = ";"
         else:
             sep = ","
-        _check_header(next(csv.reader([first.rstrip("\r")], delimiter=sep), []), p)
+        try:
+            header = next(csv.reader([first], delimiter=sep), [])
+        except csv.Error:  # an odd first line: pandas' own reading reports it
+            header = []
+        _check_header(header, p)
         kwargs: dict[str, object] = {"sep": sep}
         if as_text:
             kwargs.update(dtype=str, keep_default_na=False, na_filter=False)

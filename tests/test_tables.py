@@ -183,3 +183,18 @@ def test_check_output_path_probes_the_folder(tmp_path, monkeypatch) -> None:
 def test_require_columns_on_a_table_without_columns() -> None:
     with pytest.raises(InputError, match=r"no column 'lat': it has no columns at all \(an empty file or sheet"):
         require_columns(pd.DataFrame(), ["lat"])
+
+
+@pytest.mark.parametrize("newline", ["\r", "\r\n", "\n"])
+def test_every_line_ending_is_read(tmp_path, newline) -> None:
+    # classic Mac (CR), Windows (CRLF) and Unix (LF) line endings (common practice)
+    p = tmp_path / "t.csv"
+    p.write_bytes(newline.join(["lat;lon", "-8,5;-117,2", "-8,6;-117,3", ""]).encode())
+    df = read_table(p, as_text=True)
+    assert list(df.columns) == ["lat", "lon"] and df["lat"].tolist() == ["-8,5", "-8,6"]
+
+
+def test_quoted_header_with_a_line_break(tmp_path) -> None:
+    p = tmp_path / "t.csv"
+    p.write_text('"site\nname",lat\nA,1\n')
+    assert list(read_table(p, as_text=True).columns) == ["site\nname", "lat"]
