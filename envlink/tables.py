@@ -105,8 +105,8 @@ def _typed_as_text(df: pd.DataFrame) -> pd.DataFrame:
 def _check_header(names: Sequence[object], p: Path) -> None:
     seen: dict[str, int] = {}
     for i, name in enumerate(names, start=1):
-        key = cell_text(name).strip()
-        if not key:  # blank header cells get distinct 'Unnamed: N' names from pandas
+        key = cell_text(name)
+        if not key.strip():  # blank header cells get distinct 'Unnamed: N' names from pandas
             continue
         if key in seen:
             raise InputError(
