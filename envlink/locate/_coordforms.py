@@ -149,6 +149,8 @@ _WORD_UNITS = (
     (re.compile(r"[ ]*(?<![a-z])sec(?:onds?|s)?(?![a-z])\.?", re.I), '"'),
 )
 _SPACES = re.compile(r"\s+")
+#: zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 
 
 def normalise(text: str) -> str:
@@ -165,7 +167,7 @@ def normalise(text: str) -> str:
     >>> normalise("\u22127,5 deg")
     '-7,5°'
     """
-    s = text.translate(_CHAR_MAP)
+    s = text.translate(_CHAR_MAP).translate(_INVISIBLE)
     if not s.isascii():
         s = "".join(
             str(unicodedata.decimal(c)) if unicodedata.decimal(c, None) is not None else c

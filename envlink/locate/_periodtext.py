@@ -100,6 +100,8 @@ class NeedsOrder(Exception):
 
 # ---------------------------------------------------------------- normalising
 
+#: zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks
+_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 _DASHES = dict.fromkeys(map(ord, "\u2010\u2011\u2012\u2013\u2014\u2015\u2212\ufe58\ufe63\uff0d"), "-")
 _MONTH_WORDS = {name.lower(): i for i, name in enumerate(MONTH_NAMES, 1)}
 _MONTH_WORDS.update({abbr.lower(): i for i, abbr in enumerate(MONTH_ABBR, 1)})
@@ -115,7 +117,7 @@ def normalise(text: str) -> str:
     >>> normalise("  Sept. 3rd – 9th, 2011 ")
     'M09 3-9 2011'
     """
-    out = unicodedata.normalize("NFKC", text).translate(_DASHES).strip().lower()
+    out = unicodedata.normalize("NFKC", text).translate(_DASHES).translate(_INVISIBLE).strip().lower()
     out = out.replace(",", " ")
     out = re.sub(r"(?<=\d)(?:st|nd|rd|th)\b", "", out)
     out = _MONTH_RE.sub(lambda m: f"M{_MONTH_WORDS[m.group(1)]:02d}", out)

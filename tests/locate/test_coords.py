@@ -456,3 +456,10 @@ def test_wkt_point_is_never_swapped() -> None:
     # the order is fixed by the standard, so lat out of range is an error, not a swap
     with pytest.raises(CoordinateError, match=r"latitude -117\.2 is beyond ±90"):
         parse_coordinates("POINT (-8.5 -117.2)")
+
+
+def test_invisible_characters_are_ignored() -> None:
+    # zero-width spaces and joiners, BOMs and soft hyphens come with copy-paste (common practice)
+    c = parse_coordinates("\u200b-12.5,\u2060 45.2\ufeff")
+    assert (c.lat, c.lon) == (-12.5, 45.2)
+    assert parse_lat_lon("-12.5\u00ad", "45.2\u200d").lat == -12.5

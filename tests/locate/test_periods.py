@@ -570,3 +570,8 @@ def test_every_form_in_the_docs_reads_as_documented(text, options, window, preci
     shown = f"{period.start} .. {period.end}" if period.start else "— (unresolved)"
     assert (shown, period.precision) == (window, precision)
     assert ", ".join(f"`{f}`" for f in period.flags) == flags
+
+
+def test_invisible_characters_in_dates_are_ignored() -> None:
+    p = parse_period("Mar\u200b 2001\u2060")
+    assert (p.start, p.end) == (dt.date(2001, 3, 1), dt.date(2001, 3, 31))
