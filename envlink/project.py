@@ -212,6 +212,20 @@ class _Steps:
         self.bar.close()
 
 
+def _writable_folder(folder: Path, where_: str, what: str, advice: str) -> None:
+    """Create ``folder`` if needed and check a file can be made in it, before any work."""
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{where_}Cannot create {what}: {exc.strerror or exc}. {advice}") from exc
+    try:
+        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=folder)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise InputError(f"{where_}Cannot write in {what}: {exc.strerror or exc}. {advice}") from exc
+
+
 def run_project(
     project: Project | str | os.PathLike[str],
     *,
@@ -277,26 +291,16 @@ def run_project(
             f"Output exists and would be overwritten: {', '.join(repr(p) for p in existing)}; "
             "pass --force (force=True) to replace it."
         )
+    _writable_folder(out_dir, "", f"the output folder {str(out_dir)!r}", "Choose another folder with --out DIR.")
+    if project.cache_dir is not None:
+        _writable_folder(project.cache_dir, f"{where(project, 'project', 'cache_dir')}: ",
+                         f"the cache folder {str(project.cache_dir)!r}",
+                         "Choose another [project] cache_dir, or remove the key to cache inside the output "
+                         "folder.")  # fmt: skip
     cache = project.cache_dir or out_dir / ".cache"
     covs = project.covariates
     steps = _Steps(3 + len(covs) + ("effects" in project.data) + ("model" in project.data)
                    + bool(targets.get("report")), progress)  # fmt: skip
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(
-            f"Cannot create the output folder {str(out_dir)!r}: {exc.strerror or exc}. "
-            "Choose another folder with --out DIR."
-        ) from exc
-    try:  # a read-only folder is found now, not after the work
-        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=out_dir)
-        os.close(fd)
-        os.unlink(probe)
-    except OSError as exc:
-        raise InputError(
-            f"Cannot write in the output folder {str(out_dir)!r}: {exc.strerror or exc}. "
-            "Choose another folder with --out DIR."
-        ) from exc
     try:
         table = read_table_as_written(project.studies)
         input_columns = [str(c) for c in table.columns]

@@ -436,3 +436,19 @@ def test_category_labels_differing_only_in_white_space_are_one_level(tmp_path: P
     terms = [c["term"] for c in result.fit.to_dict()["coefficients"]]
     assert len(terms) == 2 and terms[0] == "intercept"  # one contrast: belt vs quadrat
     assert result.table["method"].tolist() == methods  # the output keeps the cells as written
+
+
+def test_unwritable_cache_folder_names_its_key(tmp_path: Path, monkeypatch) -> None:
+    text = BASE.replace('title = "test project"', 'title = "test project"\ncache_dir = "cache"')
+    p = _project(tmp_path, text)
+    real = Path.mkdir
+
+    def refuse(self, *args, **kwargs):
+        if self.name == "cache":
+            raise PermissionError(13, "Permission denied")
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(Path, "mkdir", refuse)
+    with pytest.raises(InputError, match=rf"p\.toml, line {_line_of(text, 'cache_dir')}: Cannot create the cache "
+                                         r"folder .*Permission denied"):
+        run_project(p, progress=False)
