@@ -26,7 +26,7 @@ import pandas as pd
 from envlink._projectfit import fit_model
 from envlink._projectschema import check_columns, check_files, formula_columns, validate, where
 from envlink._util import atomic_path
-from envlink.errors import EnvlinkError, InputError
+from envlink.errors import EnvlinkError, GridError, InputError
 
 __all__ = ["Project", "RunResult", "load_project", "run_project", "run_demo"]
 
@@ -340,6 +340,8 @@ def run_project(
                                                      variable=spec.get("variable"))  # fmt: skip
                 except InputError as exc:
                     raise InputError(f"{where(project, 'grids', gname)} [grids.{gname}]: {exc}") from exc
+                except GridError as exc:
+                    raise GridError(f"{where(project, 'grids', gname)} [grids.{gname}]: {exc}") from exc
             options = {k: cov[k] for k in ("stat", "window", "spatial", "baseline", "mmm",
                                            "time_weights", "min_coverage") if k in cov}  # fmt: skip
             recorded = dict(options)

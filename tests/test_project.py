@@ -452,3 +452,14 @@ def test_unwritable_cache_folder_names_its_key(tmp_path: Path, monkeypatch) -> N
     with pytest.raises(InputError, match=rf"p\.toml, line {_line_of(text, 'cache_dir')}: Cannot create the cache "
                                          r"folder .*Permission denied"):
         run_project(p, progress=False)
+
+
+def test_grid_file_that_is_not_a_grid_names_its_table(tmp_path: Path, capsys) -> None:
+    (tmp_path / "sst.nc").write_text("not a grid\n")
+    text = BASE + ('[grids.sst]\npath = "sst.nc"\n'
+                   '[[covariates]]\nname = "t_mean"\ngrid = "sst"\n')
+    p = _project(tmp_path, text)
+    assert main(["run", str(p), "--no-progress"]) == 1  # a grid that cannot be decoded: the run fails
+    err = capsys.readouterr().err
+    assert f"p.toml, line {_line_of(text, '[grids.sst]')} [grids.sst]: Cannot open the grid file" in err
+    assert "bug" not in err
