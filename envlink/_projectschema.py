@@ -296,6 +296,13 @@ def where(project: Any, *path: Any) -> str:
     return str(project.source)
 
 
+def _dotted(key: tuple[Any, ...]) -> str:
+    out = ""
+    for part in key:
+        out += f"[{part}]" if isinstance(part, int) else (("." if out else "") + str(part))
+    return out
+
+
 def check_files(project: Any, outputs: Any = ()) -> None:
     """Every file the project names exists, and none is one of ``outputs`` (key and line named)."""
     files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
@@ -306,10 +313,15 @@ def check_files(project: Any, outputs: Any = ()) -> None:
         if name in used:
             path = Path(os.path.expanduser(spec["path"]))
             files.append((("grids", name, "path"), path if path.is_absolute() else project.root / path))
+    for i, cov in enumerate(project.covariates):
+        mmm = cov.get("mmm")
+        if isinstance(mmm, str):
+            path = Path(os.path.expanduser(mmm))
+            files.append((("covariates", i, "mmm"), path if path.is_absolute() else project.root / path))
     for key, path in files:
         if not path.exists():
             raise InputError(
-                f"{where(project, *key)}: the key {'.'.join(key)!r} names {str(path)!r}, which "
+                f"{where(project, *key)}: the key {_dotted(key)!r} names {str(path)!r}, which "
                 "does not exist (relative paths are relative to the project file's folder)."
             )
     if outputs:
@@ -320,7 +332,7 @@ def check_files(project: Any, outputs: Any = ()) -> None:
             if key is not None:
                 raise InputError(
                     f"{where(project, *key) if key != ('project file',) else project.source}: the "
-                    f"output {str(out)!r} is also an input ({'.'.join(key)}); the run would "
+                    f"output {str(out)!r} is also an input ({_dotted(key)}); the run would "
                     "overwrite it. Choose another output folder (--out DIR) or [export] name."
                 )
 

@@ -354,6 +354,10 @@ def run_project(
                 raise InputError(
                     f"{where(project, 'covariates', i)} (covariate {cov['name']!r}): {exc}"
                 ) from exc
+            except GridError as exc:
+                raise GridError(
+                    f"{where(project, 'covariates', i)} (covariate {cov['name']!r}): {exc}"
+                ) from exc
             stage_prov = dict(table.attrs.get("envlink", {}).get(cov["name"], {}) or {})
             provenance["covariates"][cov["name"]] = {"grid": gname, **recorded, **stage_prov}
             steps.done(f"attach {cov['name']}")

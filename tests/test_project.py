@@ -463,3 +463,12 @@ def test_grid_file_that_is_not_a_grid_names_its_table(tmp_path: Path, capsys) ->
     err = capsys.readouterr().err
     assert f"p.toml, line {_line_of(text, '[grids.sst]')} [grids.sst]: Cannot open the grid file" in err
     assert "bug" not in err
+
+
+def test_missing_mmm_climatology_file_is_found_at_the_start(tmp_path: Path) -> None:
+    text = BASE + ('[grids.sst]\npath = "studies.csv"\n'
+                   '[[covariates]]\nname = "dhw"\ngrid = "sst"\nstat = "dhw-max"\nmmm = "clim.nc"\n')
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'mmm = ')}: the key 'covariates\[0\]\.mmm' "
+                                         r"names .*clim\.nc', which does not exist"):
+        run_project(p, progress=False)
