@@ -305,7 +305,7 @@ def _dotted(key: tuple[Any, ...]) -> str:
 
 def check_files(project: Any, outputs: Any = ()) -> None:
     """Every file the project names exists, and none is one of ``outputs`` (key and line named)."""
-    files: list[tuple[tuple[str, ...], Path]] = [(("studies", "path"), project.studies)]
+    files: list[tuple[tuple[Any, ...], Path]] = [(("studies", "path"), project.studies)]
     if project.gazetteer is not None:
         files.append((("locate", "gazetteer"), project.gazetteer))
     used = {c["grid"] for c in project.covariates}
@@ -328,11 +328,11 @@ def check_files(project: Any, outputs: Any = ()) -> None:
         inputs = {path.resolve(): key for key, path in files}
         inputs[Path(project.source).resolve()] = ("project file",)
         for out in outputs:
-            key = inputs.get(Path(out).resolve())
-            if key is not None:
+            found = inputs.get(Path(out).resolve())
+            if found is not None:
                 raise InputError(
-                    f"{where(project, *key) if key != ('project file',) else project.source}: the "
-                    f"output {str(out)!r} is also an input ({_dotted(key)}); the run would "
+                    f"{where(project, *found) if found != ('project file',) else project.source}: the "
+                    f"output {str(out)!r} is also an input ({_dotted(found)}); the run would "
                     "overwrite it. Choose another output folder (--out DIR) or [export] name."
                 )
 
