@@ -8,7 +8,7 @@ applies a kind to the columns of a table; :func:`group_effects` (defined in
 :mod:`envlink.effects_groups`) computes effects per group from raw records.
 
 Flags are short codes joined by ``;`` (``""`` when a row has none). The formulas and
-their citations are in ``docs/methods-effects.md``.
+their citations are in ``docs/methods.md``.
 """
 
 from __future__ import annotations

@@ -2,7 +2,7 @@
 
 Egger's regression test (Egger et al. 1997), trim-and-fill (Duval & Tweedie 2000)
 and Rosenthal's (1979) fail-safe N. Pure NumPy / SciPy on arrays; they need no fitted
-model. Formulas and citations: ``docs/methods-effects.md``.
+model. Formulas and citations: ``docs/methods.md``.
 """
 
 from __future__ import annotations
