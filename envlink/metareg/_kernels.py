@@ -27,13 +27,12 @@ __all__ = ["Sums", "weighted_sums", "HAVE_NUMBA", "BLOCK_ROWS"]
 #: that per-block overhead is negligible.
 BLOCK_ROWS = 1 << 16
 
-try:  # optional compiled kernel
+try:  # optional compiled kernel; ``numba`` is only used under ``if HAVE_NUMBA``
     import numba
-
-    HAVE_NUMBA = True
 except ImportError:  # pragma: no cover - exercised where numba is absent
-    numba = None
     HAVE_NUMBA = False
+else:
+    HAVE_NUMBA = True
 
 
 @dataclass

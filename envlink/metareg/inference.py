@@ -295,7 +295,7 @@ def _loo_fits(model: Any) -> list[Any]:
 def leave_one_out(model: Any) -> pd.DataFrame:
     """One row per left-out effect: each coefficient and its se, tau², Q_E, I²."""
     fits = _loo_fits(model)
-    rows = []
+    rows: list[dict[str, float]] = []
     bad = 0
     for f in fits:
         if isinstance(f, Exception):

@@ -276,7 +276,8 @@ class MetaRegression:
         k, p = d.k, d.p
         vc = np.array(self._vcov_model, dtype=np.float64)
         df: np.ndarray | None = None
-        self.kh_scale_ = None
+        self.kh_scale_: float | None = None
+        self.df_: int | None  # residual df of the t tests; None for z tests
         if self.cluster is not None:
             rf = self._robust(d)
             vc, df = rf.vcov, rf.df
