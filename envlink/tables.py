@@ -34,6 +34,7 @@ __all__ = [
     "require_columns",
     "cell_text",
     "parse_numbers",
+    "number_columns",
     "MISSING_WORDS",
     "TABLE_SUFFIXES",
 ]
@@ -237,11 +238,14 @@ def read_table_as_written(path: str | os.PathLike[str]) -> pd.DataFrame:
     return read_table(path, as_text=suffix in (".csv", ".tsv", ".txt"))
 
 
-def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> Path:
-    """Check, before any work, that a table can be written at ``path``.
+def check_output_path(path: str | os.PathLike[str], *, force: bool = False,
+                      suffixes: Sequence[str] | None = None) -> Path:
+    """Check, before any work, that a table (or another file) can be written at ``path``.
 
     Raises :class:`InputError` for an unknown extension, a path that is a folder,
     an existing file without ``force``, or a folder where no file can be created.
+    ``suffixes`` are the extensions allowed (default: the table formats
+    :func:`write_table` writes), e.g. ``(".json",)`` for a JSON result.
 
     Examples
     --------
@@ -251,18 +255,24 @@ def check_output_path(path: str | os.PathLike[str], *, force: bool = False) -> P
     Traceback (most recent call last):
     ...
     envlink.errors.InputError: Cannot write ... it is a folder; give a file name inside it, e.g. ....csv'.
+    >>> check_output_path(d / "fit.txt", suffixes=(".json",))
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: Cannot write ...fit.txt': unknown extension '.txt'; expected .json.
     """
     p = Path(path)
+    allowed = tuple(s.lower() for s in suffixes) if suffixes is not None else _WRITABLE
+    example = "table.csv" if suffixes is None else f"result{allowed[0]}"
     if p.is_dir():
         raise InputError(
             f"Cannot write {str(p)!r}: it is a folder; give a file name inside it, "
-            f"e.g. {str(p / 'table.csv')!r}."
+            f"e.g. {str(p / example)!r}."
         )
-    if p.suffix.lower() not in _WRITABLE:
-        raise InputError(
-            f"Cannot write {str(p)!r}: unknown extension {p.suffix!r}; "
-            "expected .csv, .tsv, .parquet or .xlsx."
-        )
+    if p.suffix.lower() not in allowed:
+        expected = "; expected .csv, .tsv, .parquet or .xlsx." if suffixes is None else (
+            "; expected " + " or ".join(allowed) + ".")
+        what = f"unknown extension {p.suffix!r}" if p.suffix else "no extension"
+        raise InputError(f"Cannot write {str(p)!r}: {what}{expected}")
     if p.exists() and not force:
         raise InputError(f"{str(p)!r} exists; pass --force to overwrite it.")
     folder = p.parent
@@ -352,8 +362,8 @@ def parse_numbers(values: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bo
     """A column as float64, and which non-blank cells could not be read as a number.
 
     Text is NFKC-normalised (full-width digits, no-break spaces), stripped of
-    invisible characters, and minus look-alikes become ``-``. A column with no ``.``
-    anywhere whose comma numbers do not all have three digits after the comma (so
+    invisible characters, and minus look-alikes become ``-``. A column with no number
+    written with a ``.`` whose comma numbers do not all have three digits after the comma (so
     cannot be thousands separators) is read with decimal commas, as semicolon CSVs
     write them (``12,5``). Blank cells and the words of :data:`MISSING_WORDS` are
     missing (NaN, not unreadable).
@@ -371,7 +381,9 @@ def parse_numbers(values: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bo
     text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(_INVISIBLE).translate(_MINUS).strip())
     text = text.where(~text.str.lower().isin(MISSING_WORDS), "")
     comma = text.str.fullmatch(r"[+-]?\d*,\d+")
-    if comma.any() and not text.str.contains(".", regex=False).any():
+    # a '.' in a word ('approx. 5') says nothing about how the numbers are written
+    dotted = text.str.contains(".", regex=False) & pd.to_numeric(text.where(text != "", None), errors="coerce").notna()
+    if comma.any() and not dotted.any():
         decimals = text[comma].str.split(",").str[-1].str.len()
         if (decimals != 3).any():
             text = text.str.replace(",", ".", regex=False)
@@ -379,6 +391,71 @@ def parse_numbers(values: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bo
     out = number.to_numpy(dtype=np.float64, na_value=np.nan)
     unreadable = (text != "").to_numpy(dtype=bool) & np.isnan(out)
     return out, unreadable
+
+
+def number_columns(
+    table: pd.DataFrame,
+    columns: Iterable[str],
+    *,
+    numbers: Iterable[str] = (),
+    where: str = "",
+    hint: str = "",
+) -> dict[str, NDArray[np.float64]]:
+    """The columns of ``columns`` that hold numbers, as float64 (read by :func:`parse_numbers`).
+
+    A column in ``numbers`` must hold numbers; any other column holds numbers when
+    at least one of its cells is one (a column of words is left out: text, e.g. a
+    category). Numbers written as text are read (decimal commas, unicode minus,
+    full-width digits); blank cells and :data:`MISSING_WORDS` are NaN. A cell that
+    is then not a number is an :class:`InputError` naming the column, the rows
+    (counted from 1, the first data row is row 1) and the values, rather than the
+    column silently becoming text with one level per value.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+    columns : iterable of str
+        The columns to read (each once, in order).
+    numbers : iterable of str
+        Columns that must hold numbers even when no cell is one.
+    where : str
+        Start of the error message (e.g. the option or line being read), without
+        the final ``": "``.
+    hint : str
+        What else the user can do for a column outside ``numbers``, appended to the
+        error with ``{col}`` replaced by the column name (e.g. ``"write C({col}) if
+        the column is a category"``).
+
+    Examples
+    --------
+    >>> t = pd.DataFrame({"depth": ["9,5", "12", ""], "zone": ["reef", "flat", "reef"]})
+    >>> {k: v.tolist() for k, v in number_columns(t, ["depth", "zone"]).items()}
+    {'depth': [9.5, 12.0, nan]}
+    >>> t.loc[1, "depth"] = "approx. 5"
+    >>> number_columns(t, ["depth"], where="--moderators")
+    Traceback (most recent call last):
+    ...
+    envlink.errors.InputError: --moderators: the column 'depth' holds numbers, but row 2 'approx. 5' is not a number. Write a number or leave the cell blank.
+    """
+    must = set(numbers)
+    out: dict[str, NDArray[np.float64]] = {}
+    for col in dict.fromkeys(columns):
+        values, unreadable = parse_numbers(table[col])
+        if col not in must and not np.isfinite(values).any():
+            continue  # text: a category or a label
+        if unreadable.any():
+            rows = np.flatnonzero(unreadable)
+            shown = ", ".join(f"row {i + 1} {cell_text(table[col].iloc[i])!r}" for i in rows[:5])
+            more = f" and {rows.size - 5} more" if rows.size > 5 else ""
+            verb = "is" if rows.size == 1 else "are"
+            what = "must hold numbers" if col in must else "holds numbers"
+            extra = f"; {hint.replace('{col}', str(col))}" if hint and col not in must else ""
+            raise InputError(
+                f"{where + ': ' if where else ''}the column {col!r} {what}, but {shown}{more} "
+                f"{verb} not a number. Write a number or leave the cell blank{extra}."
+            )
+        out[col] = values
+    return out
 
 
 def require_columns(df: pd.DataFrame, columns: Iterable[str | None], *, what: str = "table") -> None:

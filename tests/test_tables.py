@@ -10,6 +10,7 @@ from envlink.errors import InputError
 from envlink.tables import (
     cell_text,
     check_output_path,
+    number_columns,
     parse_numbers,
     read_table,
     read_table_as_written,
@@ -198,3 +199,36 @@ def test_quoted_header_with_a_line_break(tmp_path) -> None:
     p = tmp_path / "t.csv"
     p.write_text('"site\nname",lat\nA,1\n')
     assert list(read_table(p, as_text=True).columns) == ["site\nname", "lat"]
+
+
+def test_parse_numbers_a_word_with_a_dot_does_not_hide_decimal_commas() -> None:
+    # common practice: 'approx. 5' is a note, not a number written with a decimal point
+    v, bad = parse_numbers(pd.Series(["9,9", "approx. 5", "12,25", ""]))
+    assert v[0] == 9.9 and v[2] == 12.25 and bad.tolist() == [False, True, False, False]
+    v, bad = parse_numbers(pd.Series(["1.5", "2,5"]))  # a '.' number: commas stay unread
+    assert v[0] == 1.5 and bad.tolist() == [False, True]
+
+
+def test_number_columns_reads_text_numbers_and_names_bad_cells() -> None:
+    t = pd.DataFrame({"depth": ["9,9", "\u22123", "", "12"], "zone": ["reef", "flat", "", "reef"],
+                      "yi": ["x", "y", "", "z"]})
+    got = number_columns(t, ["depth", "zone", "depth"])
+    assert list(got) == ["depth"] and got["depth"].dtype == np.float64
+    np.testing.assert_array_equal(got["depth"], [9.9, -3.0, np.nan, 12.0])
+    t.loc[1, "depth"] = "approx. 5"
+    with pytest.raises(InputError, match=r"^--moderators: the column 'depth' holds numbers, but "
+                       r"row 2 'approx\. 5' is not a number\. .*; write C\(depth\) if"):
+        number_columns(t, ["depth"], where="--moderators", hint="write C({col}) if it is a category")
+    with pytest.raises(InputError, match=r"'yi' must hold numbers, but row 1 'x', row 2 'y', "
+                       r"row 4 'z' are not a number\. Write a number or leave the cell blank\.$"):
+        number_columns(t, ["yi"], numbers=["yi"], hint="write C({col})")
+
+
+def test_check_output_path_other_suffixes(tmp_path) -> None:
+    assert check_output_path(tmp_path / "fit.JSON", suffixes=(".json",)).name == "fit.JSON"
+    with pytest.raises(InputError, match=r"no extension; expected \.json\.$"):
+        check_output_path(tmp_path / "fit", suffixes=(".json",))
+    with pytest.raises(InputError, match=r"it is a folder; .*result\.json'"):
+        check_output_path(tmp_path, suffixes=(".json",))
+    with pytest.raises(InputError, match=r"unknown extension '\.json'; expected \.csv"):
+        check_output_path(tmp_path / "t.json")
