@@ -9,7 +9,7 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-__all__ = ["did_you_mean", "atomic_path"]
+__all__ = ["did_you_mean", "atomic_path", "INVISIBLE_CHARS"]
 
 
 def did_you_mean(name: str, choices: Iterable[str]) -> str:
@@ -56,3 +56,11 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+#: Characters that are invisible in a spreadsheet cell but break parsing: zero-width
+#: space / joiners, word joiner, BOM, soft hyphen, left-to-right / right-to-left marks.
+#: Use as ``text.translate(INVISIBLE_CHARS)``.
+INVISIBLE_CHARS: dict[int, None] = dict.fromkeys(
+    map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f")
+)

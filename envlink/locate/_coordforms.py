@@ -14,6 +14,7 @@ import unicodedata
 from dataclasses import dataclass
 from decimal import Decimal
 
+from envlink._util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 
 __all__ = [
@@ -150,7 +151,6 @@ _WORD_UNITS = (
 )
 _SPACES = re.compile(r"\s+")
 #: zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 
 
 def normalise(text: str) -> str:

@@ -14,6 +14,7 @@ import unicodedata
 from dataclasses import dataclass, replace
 from typing import Literal
 
+from envlink._util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 
 Unit = Literal["day", "month", "year"]
@@ -101,7 +102,6 @@ class NeedsOrder(Exception):
 # ---------------------------------------------------------------- normalising
 
 #: zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 _DASHES = dict.fromkeys(map(ord, "\u2010\u2011\u2012\u2013\u2014\u2015\u2212\ufe58\ufe63\uff0d"), "-")
 _MONTH_WORDS = {name.lower(): i for i, name in enumerate(MONTH_NAMES, 1)}
 _MONTH_WORDS.update({abbr.lower(): i for i, abbr in enumerate(MONTH_ABBR, 1)})

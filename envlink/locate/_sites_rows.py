@@ -11,6 +11,7 @@ from typing import Any, Literal
 
 import numpy as np
 
+from envlink._util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 from envlink.locate.gazetteer import Gazetteer
 from envlink.tables import cell_text
@@ -56,7 +57,6 @@ class _When:
 
 #: Invisible format characters that copy-paste from PDFs and web pages leaves in
 #: cells (zero-width space / joiners, word joiner, BOM, soft hyphen, direction marks).
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 
 
 def _text(value: Any) -> str:

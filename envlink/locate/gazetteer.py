@@ -21,6 +21,7 @@ from typing import Literal
 
 import pandas as pd
 
+from envlink._util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 from envlink.locate._gazetteer_read import (
     _GEO_SUFFIXES,
@@ -41,7 +42,6 @@ MatchMethod = Literal["exact", "casefold", "fuzzy"]
 _PUNCT = re.compile(r"[\W_]+", re.UNICODE)
 #: Invisible format characters left by copy-paste (zero-width space/joiners, word
 #: joiner, BOM, soft hyphen, direction marks): removed before any comparison.
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad\u200e\u200f"))
 _WHITE = re.compile(r"\s+", re.UNICODE)
 
 
