@@ -12,9 +12,11 @@ import numpy as np
 
 from envlink.errors import InputError
 
-__all__ = ["register", "run", "summary"]
+__all__ = ["register", "run", "summary", "located_numbers"]
 
 _LOCATE_COLUMNS = ("site_lat", "site_lon", "period_start", "period_end")
+#: columns of 'envlink sites' that hold numbers (read from CSV text as float64)
+_LOCATED_NUMBERS = ("site_lat", "site_lon", "site_precision_km")
 
 DESCRIPTION = """\
 Attach one covariate from a gridded raster to every row of a table, over each row's
@@ -41,8 +43,10 @@ examples:
       --mmm 28.7 --spatial nearest-valid:25km -o with_dhw.csv
 
 Results are cached in $ENVLINK_CACHE (default ~/.cache/envlink); --no-cache skips it.
-Exit codes: 0 done (even with rows lacking a value), 2 bad input, 1 failure of the
-run (e.g. a grid that cannot be decoded). See docs/extract.md."""
+Exit codes: 0 done (even with rows lacking a value), 2 bad input (including a grid
+file that cannot be opened, or an output path that cannot be written), 1 failure
+of the run (e.g. grid values that cannot be decoded while reading). A cache that
+cannot be written gives a warning, and the run goes on without it. See docs/extract.md."""
 
 
 def register(subparsers: Any) -> None:
@@ -107,6 +111,18 @@ def summary(result: Any, name: str, out: str) -> str:
     return "\n".join(lines)
 
 
+def _open(source: str, variable: str | None = None, **options: Any) -> Any:
+    """``open_grid``, with a grid that cannot be opened reported as bad input (exit 2),
+    as ``envlink grid`` reports it."""
+    from envlink.errors import GridError
+    from envlink.grids.open import open_grid
+
+    try:
+        return open_grid(source, variable, **options)
+    except GridError as exc:
+        raise InputError(str(exc)) from None
+
+
 def _mmm(value: str | None) -> Any:
     if value is None:
         return None
@@ -116,25 +132,47 @@ def _mmm(value: str | None) -> Any:
         pass
     if not Path(value).exists():
         raise InputError(f"--mmm {value!r} is neither a number (degC) nor an existing climatology file.")
-    from envlink.grids.open import open_grid
+    return _open(value, time=False).load()
 
-    return open_grid(value, time=False).load()
+
+def located_numbers(table: Any, where: str = "") -> Any:
+    """``table`` with the located number columns (site_lat, site_lon, site_precision_km) as float64.
+
+    A CSV is read as text, so those columns come back as the text 'envlink sites'
+    wrote; typed tables (Parquet, Excel) keep them as stored. Every other column is
+    left as it is. A cell that is not a number is an :class:`InputError` naming the
+    column and the row (counted from 1).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> t = located_numbers(pd.DataFrame({"site_lat": ["-8,5", ""], "id": ["007", "8"]}))
+    >>> t["site_lat"].tolist(), t["id"].tolist()
+    ([-8.5, nan], ['007', '8'])
+    """
+    import pandas as pd
+
+    from envlink.tables import number_columns
+
+    cols = [c for c in _LOCATED_NUMBERS if c in table.columns and not pd.api.types.is_numeric_dtype(table[c])]
+    if not cols:
+        return table
+    values = number_columns(table, cols, numbers=cols, where=where)
+    out = table.copy()
+    for c in cols:
+        out[c] = pd.Series(values[c], index=table.index, dtype="float64")
+    return out
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink attach``; returns the exit code."""
     from envlink.extract.attach import attach
     from envlink.extract.cache import default_cache_dir
-    from envlink.grids.open import open_grid
-    from envlink.tables import read_table, write_table
+    from envlink.tables import check_output_path, read_table_as_written, write_table
 
-    out = Path(args.output)
-    if out.suffix.lower() not in (".csv", ".tsv", ".parquet", ".pq", ".xlsx"):
-        raise InputError(f"Cannot write {str(out)!r}: unknown extension {out.suffix!r}; expected .csv, .tsv, .parquet or .xlsx.")
-    if out.exists() and not args.force:
-        raise InputError(f"{str(out)!r} exists; pass --force to overwrite it.")
+    out = check_output_path(args.output, force=args.force)
     locate_opts = {k: getattr(args, k) for k in ("lat", "lon", "coords", "site", "gazetteer", "period", "start", "end")}
-    table = read_table(args.table, as_text=True)
+    table = read_table_as_written(args.table)
     if not all(c in table.columns for c in _LOCATE_COLUMNS):
         if not any(locate_opts.values()):
             missing = [c for c in _LOCATE_COLUMNS if c not in table.columns]
@@ -152,7 +190,8 @@ def run(args: argparse.Namespace) -> int:
 
             gaz = read_gazetteer(args.gazetteer)
         table = locate(table, **{**locate_opts, "gazetteer": gaz}, order=args.order)
-    grid = open_grid(args.grid, args.var)
+    table = located_numbers(table, where=f"Table {str(args.table)!r}")
+    grid = _open(args.grid, args.var)
     result = attach(
         table, grid, name=args.name, stat=args.stat, window=args.window, spatial=args.spatial,
         baseline=args.baseline, mmm=_mmm(args.mmm), time_weights=args.time_weights,

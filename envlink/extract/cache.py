@@ -7,6 +7,11 @@ the grid is held in memory, every option of the request, the rows' site and peri
 columns, and the envlink version. Files are written atomically, so a crash leaves no
 partial entry. Grids without an identity are hashed by value when in memory; lazy
 grids without an identity are not cached.
+
+The cache never fails a run: a cache folder that cannot be written gives a
+:class:`CacheWarning` and the results are returned uncached; an entry that cannot
+be read (damaged, truncated, of another layout) gives a :class:`CacheWarning` and
+is computed again, as if absent.
 """
 
 from __future__ import annotations
@@ -14,6 +19,8 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import warnings
+import zipfile
 from collections.abc import Mapping
 from pathlib import Path
 
@@ -22,8 +29,13 @@ import pandas as pd
 import xarray as xr
 
 from envlink._util import atomic_path
+from envlink.errors import EnvlinkWarning
 
-__all__ = ["request_key", "load", "save", "default_cache_dir"]
+__all__ = ["CacheWarning", "request_key", "load", "save", "default_cache_dir"]
+
+
+class CacheWarning(EnvlinkWarning):
+    """The result cache could not be read or written; the run goes on without it."""
 
 _FIELDS = ("value", "cell_lat", "cell_lon", "distance_km", "coverage", "flags")
 
@@ -67,23 +79,66 @@ def request_key(grid: xr.DataArray, table: pd.DataFrame, options: Mapping[str, o
     return h.hexdigest()
 
 
+def _reason(exc: BaseException) -> str:
+    return (exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)) or type(exc).__name__
+
+
 def load(cache_dir: str | os.PathLike[str], key: str, n_rows: int) -> dict[str, np.ndarray] | None:
-    """The cached arrays of ``key``, or None when absent, unreadable or of another length."""
+    """The cached arrays of ``key``, or None when absent.
+
+    An entry that cannot be read, lacks a field or is of another length is a miss
+    too, with a :class:`CacheWarning` naming the file.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> load(tempfile.mkdtemp(), "0" * 64, 3) is None
+    True
+    """
     path = Path(cache_dir) / f"{key}.npz"
-    if not path.exists():
-        return None
     try:
+        if not path.is_file():
+            return None
         with np.load(path, allow_pickle=False) as z:
             out = {k: z[k] for k in _FIELDS}
-    except (OSError, ValueError, KeyError):
+        bad = [k for k, v in out.items() if v.shape != (n_rows,)]
+        why = f"its {bad[0]!r} holds {out[bad[0]].shape} values for {n_rows} rows" if bad else ""
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile) as exc:
+        why = _reason(exc)
+    if why:
+        warnings.warn(
+            f"The cache entry {str(path)!r} could not be read ({why}); it is treated as absent "
+            "and the results are computed again.",
+            CacheWarning,
+            stacklevel=2,
+        )
         return None
-    return out if all(v.shape[0] == n_rows for v in out.values()) else None
+    return out
 
 
-def save(cache_dir: str | os.PathLike[str], key: str, arrays: dict[str, np.ndarray]) -> Path:
+def save(cache_dir: str | os.PathLike[str], key: str, arrays: dict[str, np.ndarray]) -> Path | None:
     """Store ``arrays`` (the fields value, cell_lat, cell_lon, distance_km, coverage,
-    flags) atomically under ``key``."""
-    path = Path(cache_dir) / f"{key}.npz"
-    with atomic_path(path) as tmp, open(tmp, "wb") as fh:
-        np.savez(fh, **{k: np.asarray(arrays[k]) for k in _FIELDS})  # type: ignore[arg-type]
+    flags) atomically under ``key``; return the file, or None with a
+    :class:`CacheWarning` when the cache cannot be written.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> a = {k: np.zeros(2) for k in _FIELDS}
+    >>> save(tempfile.mkdtemp(), "0" * 64, a).name.endswith(".npz")
+    True
+    """
+    folder = Path(cache_dir)
+    path = folder / f"{key}.npz"
+    try:
+        with atomic_path(path) as tmp, open(tmp, "wb") as fh:
+            np.savez(fh, **{k: np.asarray(arrays[k]) for k in _FIELDS})  # type: ignore[arg-type]
+    except OSError as exc:
+        warnings.warn(
+            f"The cache at {str(folder)!r} could not be written ({_reason(exc)}); results were not "
+            "cached. Point $ENVLINK_CACHE (or cache_dir=) at a writable folder, or pass --no-cache.",
+            CacheWarning,
+            stacklevel=2,
+        )
+        return None
     return path

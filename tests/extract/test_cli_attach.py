@@ -124,3 +124,100 @@ def test_attach_dhw_with_mmm_climatology_file(files):
     assert rc == 0
     # HotSpot 1 °C (exactly the threshold) every day: 84 × 1 / 7 = 12 °C-weeks
     assert_allclose(pd.read_csv(out)["dhw"][0], 12.0, rtol=1e-12)
+
+
+def test_attach_parquet_keeps_stored_types(files):
+    pd.DataFrame({
+        "id": np.array([1, 2], dtype=np.int64), "lat": [1.2, 9.0], "note": ["a", "b"],
+        "site_lat": [1.2, 9.0], "site_lon": [10.7, 10.7],
+        "period_start": ["2000-03-01"] * 2, "period_end": ["2000-03-31"] * 2,
+    }).to_parquet(files / "o8.parquet")
+    out = files / "a8.parquet"
+    rc = main(["attach", str(files / "o8.parquet"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "-o", str(out), "--no-cache"])
+    assert rc == 0
+    res = pd.read_parquet(out)
+    assert res["id"].dtype == np.int64
+    assert res["lat"].dtype == np.float64 and res["site_lat"].dtype == np.float64
+    assert res["id"].tolist() == [1, 2] and res["note"].tolist() == ["a", "b"]
+    # cell (1.5, 10.5), March 2000: 2 + 6 × 2 = 14 (as in test_attach_located_table)
+    assert_allclose(res["sst"][0], 14.0, rtol=1e-12)
+
+
+def test_attach_csv_reads_located_numbers_keeps_user_text(files):
+    (files / "semi.csv").write_text(
+        "id;site_lat;site_lon;site_precision_km;period_start;period_end;depth\n"
+        "007;1,2;10,7;1,5;2000-03-01;2000-03-31;3,5\n"
+        "8;;;;2000-03-01;2000-03-31;\n"
+    )
+    out = files / "semi.parquet"
+    rc = main(["attach", str(files / "semi.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "-o", str(out), "--no-cache"])
+    assert rc == 0
+    res = pd.read_parquet(out)
+    assert res["site_lat"].dtype == np.float64 and res["site_precision_km"].dtype == np.float64
+    assert_allclose(res["site_lat"], [1.2, np.nan], rtol=0, atol=1e-12, equal_nan=True)  # decimal comma read
+    assert res["id"].tolist() == ["007", "8"] and res["depth"].tolist() == ["3,5", ""]  # as written
+    assert_allclose(res["sst"][0], 14.0, rtol=1e-12)
+    assert res["sst_flags"][1] == "site_rejected"
+
+
+def test_attach_unreadable_site_number_names_row_and_column(files, capsys):
+    (files / "bad.csv").write_text("site_lat,site_lon,period_start,period_end\n"
+                                   "1.2,10.7,2000-03-01,2000-03-31\n1.2,ten,2000-03-01,2000-03-31\n")
+    rc = main(["attach", str(files / "bad.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "-o", str(files / "o.csv"), "--no-cache"])
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert "bad.csv" in err and "'site_lon' must hold numbers, but row 2 'ten' is not a number" in err
+    assert not (files / "o.csv").exists()
+
+
+@pytest.mark.parametrize(
+    "target, message",
+    [
+        ("folder", "it is a folder"),
+        ("o.txt", "unknown extension '.txt'"),
+        ("blocker/o.csv", "cannot create a file in"),
+    ],
+)
+def test_attach_checks_output_before_any_work(files, capsys, target, message):
+    (files / "folder").mkdir()
+    (files / "blocker").write_text("a regular file, so nothing can be written below it (even as root)\n")
+    # the grid does not exist: the output is checked first, so its error is the one reported
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "missing.nc"), "--name", "sst",
+               "-o", str(files / target)])
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert message in err and "missing.nc" not in err
+    assert not (files / "cache").exists()
+
+
+def test_attach_unwritable_cache_warns_and_writes_output(files, monkeypatch, capsys):
+    from envlink.extract.cache import CacheWarning
+
+    (files / "blocker").write_text("a regular file\n")
+    monkeypatch.setenv("ENVLINK_CACHE", str(files / "blocker" / "cache"))
+    out = files / "out.csv"
+    with pytest.warns(CacheWarning, match=r"cache at '.*blocker.cache' could not be written .*not cached"):
+        rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+                   "-o", str(out)])
+    assert rc == 0
+    assert_allclose(float(pd.read_csv(out)["sst"][0]), 14.0, rtol=1e-12)
+    assert "unexpected error" not in capsys.readouterr().err
+
+
+def test_attach_grid_that_cannot_be_opened_exits_2_like_grid(files, capsys):
+    (files / "notnc.nc").write_text("not a netcdf file\n")
+    assert main(["grid", str(files / "notnc.nc")]) == 2
+    grid_err = capsys.readouterr().err
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "notnc.nc"), "--name", "sst",
+               "-o", str(files / "o.csv")])
+    assert rc == 2
+    attach_err = capsys.readouterr().err
+    assert attach_err.startswith("envlink attach: error: ")
+    assert attach_err.removeprefix("envlink attach: error: ") == grid_err.removeprefix("envlink grid: error: ")
+    assert "notnc.nc" in attach_err
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "daily.nc"), "--name", "dhw", "--stat", "dhw-max",
+               "--mmm", str(files / "notnc.nc"), "-o", str(files / "o.csv")])
+    assert rc == 2 and "notnc.nc" in capsys.readouterr().err

@@ -149,3 +149,52 @@ def test_dask_grid_reads_only_needed_chunks(grid):
     assert reads
     for _, ys, xs in reads:
         assert 4 <= ys.start and ys.stop <= 6 and 4 <= xs.start and xs.stop <= 6
+
+
+def test_cache_that_cannot_be_written_warns_and_the_run_goes_on(grid, tmp_path):
+    from envlink.extract.cache import CacheWarning
+
+    blocker = tmp_path / "not_a_folder"
+    blocker.write_text("a regular file\n")  # no folder can be made under it, even as root
+    t = _rows()
+    with pytest.warns(CacheWarning, match=r"cache at '.*not_a_folder.*' could not be written .*not cached"):
+        out = attach(t, grid, name="v", cache_dir=blocker / "cache")
+    assert_allclose(out["v"], attach(t, grid, name="v")["v"], rtol=0, atol=0, equal_nan=True)
+
+
+def test_cache_write_refused_warns(grid, tmp_path, monkeypatch):
+    import errno
+
+    import envlink.extract.cache as cache
+
+    def refuse(path):
+        raise PermissionError(errno.EACCES, "Permission denied", str(path) + ".x.part")
+
+    monkeypatch.setattr(cache, "atomic_path", refuse)
+    with pytest.warns(cache.CacheWarning, match=r"could not be written \(Permission denied\)") as rec:
+        assert cache.save(tmp_path, "0" * 64, {k: np.zeros(2) for k in cache._FIELDS}) is None
+    assert ".part" not in str(rec[0].message)  # the temporary name is no use to the user
+
+
+@pytest.mark.parametrize("damage", ["garbage", "truncated", "short"])
+def test_damaged_cache_entry_is_a_miss_with_a_warning(grid, tmp_path, damage):
+    from envlink.extract.cache import CacheWarning
+
+    t = _rows()
+    first = attach(t, grid, name="v", cache_dir=tmp_path)
+    (entry,) = tmp_path.glob("*.npz")
+    raw = entry.read_bytes()
+    if damage == "garbage":
+        entry.write_bytes(b"not an npz file at all")
+    elif damage == "truncated":
+        entry.write_bytes(raw[: len(raw) // 2])  # zip header kept, directory lost
+    else:
+        np.savez(entry, **{k: np.zeros(2) for k in ("value", "cell_lat", "cell_lon", "distance_km",
+                                                       "coverage", "flags")})
+    with pytest.warns(CacheWarning, match=r"cache entry .*\.npz' could not be read .*computed again"):
+        again = attach(t, grid, name="w", cache_dir=tmp_path)
+    assert again.attrs["envlink"]["w"]["cache"] == "stored"
+    assert_allclose(again["w"], first["v"], rtol=0, atol=0, equal_nan=True)
+    assert again["w_flags"].tolist() == first["v_flags"].tolist()
+    third = attach(t, grid, name="u", cache_dir=tmp_path)  # the entry was written again
+    assert third.attrs["envlink"]["u"]["cache"] == "hit"
