@@ -142,6 +142,15 @@ def test_attach_parquet_keeps_stored_types(files):
     assert res["id"].tolist() == [1, 2] and res["note"].tolist() == ["a", "b"]
     # cell (1.5, 10.5), March 2000: 2 + 6 × 2 = 14 (as in test_attach_located_table)
     assert_allclose(res["sst"][0], 14.0, rtol=1e-12)
+    # a table whose located numbers were stored as text (an earlier run's a8.parquet) is read too
+    res.drop(columns=[c for c in res.columns if c.startswith("sst")]).astype(
+        {"site_lat": "string", "site_lon": "string"}).to_parquet(files / "text8.parquet")
+    rc = main(["attach", str(files / "text8.parquet"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "-o", str(files / "b8.parquet"), "--no-cache"])
+    assert rc == 0
+    again = pd.read_parquet(files / "b8.parquet")
+    assert again["site_lat"].dtype == np.float64 and again["id"].dtype == np.int64
+    assert_allclose(again["sst"][0], 14.0, rtol=1e-12)
 
 
 def test_attach_csv_reads_located_numbers_keeps_user_text(files):
