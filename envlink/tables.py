@@ -35,6 +35,7 @@ __all__ = [
     "cell_text",
     "parse_numbers",
     "number_columns",
+    "label_text",
     "MISSING_WORDS",
     "TABLE_SUFFIXES",
 ]
@@ -456,6 +457,31 @@ def number_columns(
             )
         out[col] = values
     return out
+
+
+def label_text(values: pd.Series) -> pd.Series:
+    """Text cells as labels (categories, study names): one space for each run of white space,
+    invisible characters removed, and blank cells missing (``None``), so ``" reef "`` and
+    ``"reef"`` are one label and a blank cell is no label at all.
+
+    Columns that are not text (numbers of a typed file) are returned unchanged.
+
+    Examples
+    --------
+    >>> label_text(pd.Series(["reef  flat", " reef flat\u200b", "", "lagoon"])).tolist()
+    ['reef flat', 'reef flat', None, 'lagoon']
+    """
+    if not (pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values)):
+        return values
+    def one(v: Any) -> Any:
+        if not isinstance(v, str):
+            return None if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)) else v
+        t = _WHITE.sub(" ", v.translate(_INVISIBLE)).strip()
+        return t or None
+    return pd.Series([one(v) for v in values.tolist()], index=values.index, dtype=object, name=values.name)
+
+
+_WHITE = re.compile(r"\s+")
 
 
 def require_columns(df: pd.DataFrame, columns: Iterable[str | None], *, what: str = "table") -> None:

@@ -6,9 +6,13 @@ import argparse
 import json
 import sys
 import warnings
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from envlink.errors import InputError
+from envlink.errors import EnvlinkError, InputError
+
+if TYPE_CHECKING:  # numpy and pandas load only when the command runs
+    import numpy as np
+    import pandas as pd
 
 __all__ = ["register", "run"]
 
@@ -63,29 +67,64 @@ def register(subparsers: Any) -> None:
                    help="also run a permutation test of the moderators with N permutations")
     p.add_argument("--seed", metavar="S", type=int, default=None,
                    help="random seed of the permutation test (for reproducible p-values)")
-    p.add_argument("--json", metavar="OUT", default=None, help="write the result as JSON to OUT")
+    p.add_argument("--json", metavar="OUT", default=None,
+                   help="write the result as JSON to OUT (a .json file; replaced if it exists)")
     p.set_defaults(handler=run)
+
+
+def _model_table(df: pd.DataFrame, args: argparse.Namespace, variables: list[str]) -> pd.DataFrame:
+    """The table with the model's columns read: numbers as float64, labels and categories as text.
+
+    CSV cells are text as written, so numbers written as text (decimal commas,
+    unicode minus signs) are read here; a plain moderator with a cell that is not
+    a number is bad input naming the row, rather than a category per value.
+    """
+    from envlink.metareg.design import category_columns
+    from envlink.tables import label_text, number_columns
+
+    numbers: dict[str, np.ndarray] = {}
+    for col, option in ((args.effect, "--effect"), (args.variance, "--variance")):
+        numbers.update(number_columns(df, [col], numbers=[col], where=option))
+    labels = [c for c in (args.nested, args.cluster) if c]
+    categories = category_columns(args.moderators, variables)
+    plain = [c for c in variables if c in df.columns and c not in categories and c not in labels
+             and c not in numbers]
+    numbers.update(number_columns(df, plain, where="--moderators",
+                                  hint="write C({col}) in --moderators if the column is a category"))
+    data = df.copy()
+    for col, values in numbers.items():
+        data[col] = values
+    for col in dict.fromkeys([*variables, *labels]):
+        if col in data.columns and col not in numbers:
+            data[col] = label_text(data[col])  # white space is not a level; blank is missing
+    return data
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink fit``; returns the exit code."""
     from envlink._util import atomic_path
+    from envlink.metareg.design import formula_variables
     from envlink.metareg.model import MetaRegression
-    from envlink.tables import read_table, require_columns
+    from envlink.tables import check_output_path, read_table_as_written, require_columns
 
     if not 0 < args.level < 1:
         raise InputError(f"--level must be between 0 and 1; got {args.level}.")
     if args.permutations < 0:
         raise InputError(f"--permutations must be 0 or more; got {args.permutations}.")
-    df = read_table(args.table)
+    # the JSON result replaces an existing file, but a path that cannot be written is
+    # found before the table is read and the model fitted
+    out = check_output_path(args.json, force=True, suffixes=(".json",)) if args.json else None
+    variables = formula_variables(args.moderators)
+    df = read_table_as_written(args.table)
     require_columns(df, [args.effect, args.variance, args.nested, args.cluster])
+    data = _model_table(df, args, variables)
     model = MetaRegression(
         method=args.method, test=args.test, tau2=args.tau2, moderators=args.moderators,
         nested=args.nested, cluster=args.cluster, truncate_kh=args.truncate_kh, level=args.level,
     )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # every warning is in the result's notes
-        model.fit(df, effect=args.effect, variance=args.variance)
+        model.fit(data, effect=args.effect, variance=args.variance)
         result = model.to_dict()
         perm = None
         if args.permutations:
@@ -100,7 +139,10 @@ def run(args: argparse.Namespace) -> int:
         result["permutation"] = perm
     for note in result["warnings"]:
         print(f"envlink fit: note: {note}", file=sys.stderr)
-    if args.json:
-        with atomic_path(args.json) as tmp:
-            tmp.write_text(json.dumps(result, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+    if out is not None:
+        try:
+            with atomic_path(out) as tmp:
+                tmp.write_text(json.dumps(result, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+        except OSError as exc:
+            raise EnvlinkError(f"Cannot write {str(out)!r}: {exc.strerror or exc}.") from exc
     return 0

@@ -25,6 +25,7 @@ from envlink.metareg.design import (
     design_from_arrays,
     design_from_frame,
     new_rows,
+    rows_text,
 )
 from envlink.metareg.multilevel import fit_multilevel, study_blocks
 
@@ -178,10 +179,9 @@ class MetaRegression:
             )
         msgs: list[str] = []
         if d.n_dropped:
-            shown = ", ".join(repr(x) for x in d.dropped_labels[:5])
-            more = "" if d.n_dropped <= 5 else f" and {d.n_dropped - 5} more"
+            gone = np.flatnonzero(~d.keep) if d.keep is not None else np.asarray(d.dropped_labels)
             msgs.append(f"{d.n_dropped} row(s) dropped for missing effect, variance or "
-                        f"moderator values (rows {shown}{more}).")
+                        f"moderator values ({rows_text(gone, d.all_labels)}).")
         un = _use_numba()
         s0 = est.checked_sums(d, un)
         g0 = est.gls(s0, 0.0)

@@ -13,6 +13,7 @@ from numpy.testing import assert_allclose
 from reference.bcg import table
 from statsmodels.regression.linear_model import WLS
 
+from envlink.errors import InputError
 from envlink.metareg import MetaRegression
 
 
@@ -57,3 +58,46 @@ def test_summary_text_and_html():
     assert "ablat" in text and "CR2 cluster-robust (3 clusters)" in text
     html = s._repr_html_()
     assert html.startswith("<div") and "<td>ablat</td>" in html
+
+
+@pytest.mark.parametrize("formula,intercept,where,caret", [
+    ("ablat +", True, "at character 7 ('+')", "          ^"),
+    ("ablat +", False, "at character 7 ('+')", "          ^"),  # '0 + ' added inside is not counted
+    ("  ablat + (year", True, "at character 11 ('(')", "              ^"),
+    ("C(alloc", True, "at character 1 ('C(alloc')", "    ^^^^^^^"),
+])
+def test_formula_errors_quote_the_formula_and_point_in_plain_text(formula, intercept, where, caret):
+    with pytest.raises(InputError) as info:
+        MetaRegression(moderators=formula, intercept=intercept).fit(table(), effect="yi",
+                                                                    variance="vi")
+    msg = str(info.value)
+    assert "\x1b" not in msg and "\u29db" not in msg and "\u29da" not in msg  # no terminal codes
+    first, shown, pointer = msg.split("\n")
+    assert first.startswith(f"Cannot parse the moderator formula {formula!r}: {where}: ")
+    assert shown == f"    {formula}" and pointer == caret
+    assert "insuffient" not in msg
+
+
+def test_formula_with_a_left_side_or_unknown_function_is_bad_input():
+    with pytest.raises(InputError, match=r"'yi ~ ablat' must be a right-hand side only"):
+        MetaRegression(moderators="yi ~ ablat").fit(table(), effect="yi", variance="vi")
+    with pytest.raises(InputError, match=r"'lg' in the moderator formula 'lg\(ablat\)' is neither a "
+                       r"column of the table nor a function the formula knows"):
+        MetaRegression(moderators="lg(ablat)").fit(table(), effect="yi", variance="vi")
+
+
+def test_text_numbers_as_a_plain_term_are_refused_not_made_categories():
+    df = table()
+    df["depth_txt"] = [f"{a:.1f}".replace(".", ",") for a in df["ablat"]]
+    df.loc[2, "depth_txt"] = "approx. 5"
+    with pytest.raises(InputError) as info:
+        MetaRegression(moderators="depth_txt").fit(df, effect="yi", variance="vi")
+    msg = str(info.value)
+    assert msg.startswith("Column 'depth_txt' holds numbers written as text (row 1 holds '44,0')")
+    assert "row 3 holds 'approx. 5', which is not a number" in msg
+    assert msg.endswith("write C(depth_txt) in the moderators if it is a category.")
+    # the user's choice of a category, and a column of words, stay categories
+    m = MetaRegression(moderators="C(depth_txt)", method="DL").fit(df, effect="yi", variance="vi")
+    assert m.p_ == 10 and "C(depth_txt)[T.approx. 5]" in m.terms_
+    m = MetaRegression(moderators="alloc", method="DL").fit(df, effect="yi", variance="vi")
+    assert m.terms_ == ["intercept", "alloc[T.random]", "alloc[T.systematic]"]

@@ -19,10 +19,10 @@ def bcg():
 
 
 def test_non_positive_variance_names_the_row(bcg):
-    bcg.loc[4, "vi"] = 0.0
-    with pytest.raises(ModelError, match=r"must be positive and finite; row 4 has 0\.0"):
+    bcg.loc[4, "vi"] = 0.0  # the fifth data row: row 5, as envlink counts rows (from 1)
+    with pytest.raises(ModelError, match=r"must be positive and finite; row 5 has 0\.0"):
         MetaRegression().fit(bcg, effect="yi", variance="vi")
-    with pytest.raises(ModelError, match="row 4"):
+    with pytest.raises(ModelError, match="row 5 has"):
         MetaRegression().fit(y=bcg["yi"].to_numpy(), v=bcg["vi"].to_numpy())
 
 
@@ -59,7 +59,7 @@ def test_non_convergence_is_reported(bcg):
 def test_missing_rows_dropped_counted_and_kept_in_outputs(bcg):
     bcg.loc[2, "ablat"] = np.nan
     bcg.loc[7, "vi"] = np.nan
-    with pytest.warns(MetaRegressionWarning, match=r"2 row\(s\) dropped.*rows 2, 7"):
+    with pytest.warns(MetaRegressionWarning, match=r"2 row\(s\) dropped.*\(rows 3, 8\)\.$"):
         m = MetaRegression(moderators="ablat").fit(bcg, effect="yi", variance="vi")
     assert m.n_dropped_ == 2 and m.k_ == 11
     res = m.standardized_residuals()
@@ -81,7 +81,7 @@ def test_bad_options_and_columns(bcg):
         MetaRegression().fit(bcg, effect="yy", variance="vi")
     bcg["txt"] = bcg["yi"].astype(str)
     bcg.loc[3, "txt"] = "n/a?"
-    with pytest.raises(InputError, match=r"'txt' must hold numbers; row 3 holds 'n/a\?'"):
+    with pytest.raises(InputError, match=r"'txt' must hold numbers; row 4 holds 'n/a\?'"):
         MetaRegression().fit(bcg, effect="txt", variance="vi")
 
 
@@ -106,3 +106,40 @@ def test_permutation_needs_a_moderator(bcg):
     m = MetaRegression().fit(bcg, effect="yi", variance="vi")
     with pytest.raises(ModelError, match="at least one moderator"):
         m.permutation_test(10, seed=1)
+
+
+def test_rows_are_counted_from_1_with_labels_for_a_custom_index(bcg):
+    # rows count from 1 (the first data row is row 1), as in locate and effects messages;
+    # a DataFrame whose index is not 0, 1, ... also gets its labels
+    bcg.index = [f"t{i + 1}" for i in range(13)]
+    bcg.loc["t3", "ablat"] = np.nan
+    bcg.loc["t13", "yi"] = np.nan
+    with pytest.warns(MetaRegressionWarning,
+                      match=r"2 row\(s\) dropped .* \(rows 3, 13 \(index 't3', 't13'\)\)\.$"):
+        m = MetaRegression(moderators="ablat").fit(bcg, effect="yi", variance="vi")
+    assert m.standardized_residuals().index.tolist() == list(bcg.index)
+    bcg.loc["t5", "vi"] = -1.0
+    with pytest.raises(ModelError, match=r"row 5 \(index 't5'\) has -1\.0"):
+        MetaRegression().fit(bcg, effect="yi", variance="vi")
+    y = bcg["yi"].fillna(0).to_numpy()
+    with pytest.raises(ModelError, match=r"Effect 'y' must be finite; row 2 has inf"):
+        MetaRegression().fit(y=np.r_[0.1, np.inf, y[2:]], v=np.full(13, 0.1))
+
+
+def test_effect_and_variance_written_as_text_are_read(bcg):
+    # decimal commas and U+2212 MINUS SIGN (Unicode 15, ch. 6.2), as envlink.tables reads them
+    txt = bcg.assign(yi=[f"{v:.6f}".replace(".", ",").replace("-", "\u2212") for v in bcg["yi"]],
+                     vi=[f"{v:.6f}".replace(".", ",") for v in bcg["vi"]])
+    ref = MetaRegression(moderators="ablat").fit(bcg.round({"yi": 6, "vi": 6}), effect="yi",
+                                                 variance="vi")
+    m = MetaRegression(moderators="ablat").fit(txt, effect="yi", variance="vi")
+    np.testing.assert_allclose(m.coef_, ref.coef_, rtol=1e-12)
+
+
+def test_warning_class_is_an_envlink_warning():
+    import envlink.metareg
+    from envlink.errors import EnvlinkWarning
+
+    assert issubclass(MetaRegressionWarning, EnvlinkWarning)
+    assert envlink.metareg.MetaRegressionWarning is MetaRegressionWarning
+    assert "MetaRegressionWarning" in envlink.metareg.__all__
