@@ -460,11 +460,11 @@ def number_columns(
 
 
 def label_text(values: pd.Series) -> pd.Series:
-    """Text cells as labels (categories, study names): one space for each run of white space,
-    invisible characters removed, and blank cells missing (``None``), so ``" reef "`` and
-    ``"reef"`` are one label and a blank cell is no label at all.
+    """Text cells as labels (categories, study names), so that white space is not a label.
 
-    Columns that are not text (numbers of a typed file) are returned unchanged.
+    Each run of white space becomes one space, invisible characters are removed and
+    blank cells are missing (``None``): ``" reef "`` and ``"reef"`` are one label
+    and a blank cell is no label at all. Columns that are not text (numbers of a typed file) are returned unchanged.
 
     Examples
     --------
@@ -473,6 +473,7 @@ def label_text(values: pd.Series) -> pd.Series:
     """
     if not (pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values)):
         return values
+
     def one(v: Any) -> Any:
         if not isinstance(v, str):
             return None if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)) else v

@@ -10,6 +10,7 @@ from envlink.errors import InputError
 from envlink.tables import (
     cell_text,
     check_output_path,
+    label_text,
     number_columns,
     parse_numbers,
     read_table,
@@ -232,3 +233,10 @@ def test_check_output_path_other_suffixes(tmp_path) -> None:
         check_output_path(tmp_path, suffixes=(".json",))
     with pytest.raises(InputError, match=r"unknown extension '\.json'; expected \.csv"):
         check_output_path(tmp_path / "t.json")
+
+
+def test_label_text_white_space_is_not_a_label() -> None:
+    got = label_text(pd.Series([" reef\u00a0 flat ", "reef flat", "\u200b", None, "lagoon"], dtype="string"))
+    assert got.tolist() == ["reef flat", "reef flat", None, None, "lagoon"] and got.isna().sum() == 2
+    typed = pd.Series([3, 4])
+    assert label_text(typed) is typed  # numbers of a typed file stay as they are

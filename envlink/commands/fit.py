@@ -22,7 +22,10 @@ sampling variance per row. Moderators are a formula over the table's columns
 (numeric terms, C(col) for categories, C(col, Treatment('ref')) for a reference
 level, a:b interactions, I(x**2) polynomials, bs(x, df=3) splines). The text
 summary goes to stdout; --json writes the result as one JSON object. Rows with a
-missing effect, variance or moderator are dropped and reported."""
+missing effect, variance or moderator are dropped and reported (rows counted from 1,
+the first data row is row 1). Numbers written as text are read (decimal commas as in
+12,5, unicode minus signs); a cell of a plain moderator that is not a number is an
+error naming its row: write C(col) if the column is a category."""
 
 EPILOG = """\
 examples:
