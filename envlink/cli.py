@@ -13,9 +13,10 @@ import importlib
 import os
 import sys
 import traceback
+import warnings
 from collections.abc import Sequence
 
-from envlink.errors import EnvlinkError, InputError
+from envlink.errors import EnvlinkError, EnvlinkWarning, InputError
 
 __all__ = ["main", "build_parser", "COMMANDS"]
 
@@ -72,6 +73,16 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help(sys.stderr)
         return 2
     debug = args.debug or os.environ.get("ENVLINK_DEBUG") == "1"
+    plain_show = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):  # type: ignore[no-untyped-def]
+        # envlink's own warnings are messages for the user, not for a programmer
+        if issubclass(category, EnvlinkWarning) and not debug:
+            print(f"envlink {args.command}: warning: {message}", file=sys.stderr)
+        else:
+            plain_show(message, category, filename, lineno, file, line)
+
+    warnings.showwarning = show
     try:
         return int(args.handler(args) or 0)
     except InputError as exc:
@@ -101,6 +112,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             file=sys.stderr,
         )
         return 1
+    finally:
+        warnings.showwarning = plain_show
 
 
 if __name__ == "__main__":  # pragma: no cover

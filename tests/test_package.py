@@ -48,3 +48,27 @@ def test_console_entry_point_runs() -> None:
 
 def test_no_command_is_usage_error(capsys: pytest.CaptureFixture[str]) -> None:
     assert cli.main([]) == 2
+
+
+def test_envlink_warnings_print_as_plain_messages(monkeypatch, capsys) -> None:
+    import argparse
+    import warnings
+
+    class DemoWarning(envlink.EnvlinkWarning):
+        pass
+
+    def handler(args: argparse.Namespace) -> int:
+        warnings.warn("3 rows were dropped", DemoWarning, stacklevel=2)
+        return 0
+
+    parser = cli.build_parser()
+    monkeypatch.setattr(cli, "build_parser", lambda: parser)
+    sites = parser._subparsers._group_actions[0].choices["sites"]  # type: ignore[union-attr]
+    sites.set_defaults(handler=handler)
+    with warnings.catch_warnings():
+        warnings.simplefilter("always")
+        code = cli.main(["sites", "t.csv", "-o", "o.csv", "--coords", "c"])
+    assert code == 0
+    err = capsys.readouterr().err
+    assert "envlink sites: warning: 3 rows were dropped" in err
+    assert "warnings.warn" not in err

@@ -10,6 +10,7 @@ from typing import Any
 
 import numpy as np
 
+from envlink.commands.sites import add_locate_arguments, locate_kwargs
 from envlink.errors import InputError
 
 __all__ = ["register", "run", "summary", "located_numbers"]
@@ -74,17 +75,8 @@ def register(subparsers: Any) -> None:
     p.add_argument("-o", "--output", metavar="OUT", required=True, help="output table (.csv, .tsv, .parquet, .xlsx)")
     p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
     p.add_argument("--no-cache", action="store_true", help="do not read or write the result cache")
-    g = p.add_argument_group("locating first (when TABLE lacks the columns of 'envlink sites')")
-    for opt, text in (("--lat", "column with latitudes"), ("--lon", "column with longitudes"),
-                      ("--coords", "column with both coordinates in one cell"),
-                      ("--site", "column with site names (with --gazetteer)"),
-                      ("--gazetteer", "table or GeoPackage of named sites"),
-                      ("--period", "column with the sampling period in one cell"),
-                      ("--start", "column with the period's start"), ("--end", "column with the period's end")):
-        g.add_argument(opt, metavar="FILE" if opt == "--gazetteer" else "COL", help=text)
-    order = g.add_mutually_exclusive_group()
-    order.add_argument("--dayfirst", dest="order", action="store_const", const="dayfirst", help="read 05/06/2011 as 5 June")
-    order.add_argument("--monthfirst", dest="order", action="store_const", const="monthfirst", help="read 05/06/2011 as 6 May")
+    # The column and reading options of 'envlink sites', used when TABLE is not located yet.
+    add_locate_arguments(p)
     p.set_defaults(handler=run)
 
 
@@ -171,10 +163,10 @@ def run(args: argparse.Namespace) -> int:
     from envlink.tables import check_output_path, read_table_as_written, write_table
 
     out = check_output_path(args.output, force=args.force)
-    locate_opts = {k: getattr(args, k) for k in ("lat", "lon", "coords", "site", "gazetteer", "period", "start", "end")}
     table = read_table_as_written(args.table)
     if not all(c in table.columns for c in _LOCATE_COLUMNS):
-        if not any(locate_opts.values()):
+        given = ("lat", "lon", "coords", "site", "gazetteer", "period", "start", "end")
+        if not any(getattr(args, k) for k in given):
             missing = [c for c in _LOCATE_COLUMNS if c not in table.columns]
             raise InputError(
                 f"The table lacks the located columns {', '.join(missing)}; run 'envlink sites' first, or give "
@@ -182,14 +174,7 @@ def run(args: argparse.Namespace) -> int:
             )
         from envlink.locate.sites import locate
 
-        if args.site and not args.gazetteer:
-            raise InputError("--site needs --gazetteer FILE, the table of named sites to look the names up in.")
-        gaz = None
-        if args.gazetteer:
-            from envlink.locate.gazetteer import read_gazetteer
-
-            gaz = read_gazetteer(args.gazetteer)
-        table = locate(table, **{**locate_opts, "gazetteer": gaz}, order=args.order)
+        table = locate(table, **locate_kwargs(args))
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
     grid = _open(args.grid, args.var)
     result = attach(

@@ -258,8 +258,8 @@ def attach(
         "flags": flags.render().astype(str),
     }
     if key is not None and cache_dir is not None:
-        _cache.save(cache_dir, key, arrays)
-        prov["cache"] = "stored"
+        stored = _cache.save(cache_dir, key, arrays)
+        prov["cache"] = "stored" if stored is not None else "not stored"
     return _assemble(table, name, arrays, prov)
 
 
