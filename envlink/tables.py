@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from envlink._util import atomic_path, did_you_mean
+from envlink._util import INVISIBLE_CHARS, atomic_path, did_you_mean
 from envlink.errors import InputError
 
 __all__ = [
@@ -477,7 +477,7 @@ def label_text(values: pd.Series) -> pd.Series:
     def one(v: Any) -> Any:
         if not isinstance(v, str):
             return None if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)) else v
-        t = _WHITE.sub(" ", v.translate(_INVISIBLE)).strip()
+        t = _WHITE.sub(" ", v.translate(INVISIBLE_CHARS)).strip()
         return t or None
     return pd.Series([one(v) for v in values.tolist()], index=values.index, dtype=object, name=values.name)
 
