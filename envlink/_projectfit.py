@@ -15,11 +15,9 @@ import pandas as pd
 
 from envlink._projectschema import formula_columns, where
 from envlink.errors import InputError
+from envlink.tables import label_text
 
 __all__ = ["fit_model"]
-
-_WHITE = re.compile(r"\s+")
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
 
 
 def _label_columns(model: Mapping[str, Any]) -> set[str]:
@@ -29,35 +27,20 @@ def _label_columns(model: Mapping[str, Any]) -> set[str]:
 
 def _numeric_columns(project: Any, table: pd.DataFrame, needed: list[str], formula: str,
                      labels: set[str]) -> dict[str, np.ndarray]:
-    """The model's number columns as float64, read as :func:`parse_numbers` reads them.
+    """The model's number columns as float64 (:func:`envlink.tables.number_columns`).
 
-    The effect, the variance and every moderator that is not a label or written
-    ``C(col)`` in the formula are numbers when any of their cells is one; a cell that
-    is then not a number (``approx. 5``) is an :class:`InputError` naming its rows,
-    rather than the column silently becoming a category with one level per value.
+    The effect and the variance must be numbers; every moderator that is not a label or
+    written ``C(col)`` in the formula is a number column when any of its cells is one,
+    so a numeric moderator never silently becomes a category with one level per value.
     """
-    from envlink.tables import parse_numbers
+    from envlink.tables import number_columns
 
-    effect, variance = needed[0], needed[1]
-    out: dict[str, np.ndarray] = {}
-    for col in dict.fromkeys(needed):
-        if col in labels or re.search(rf"\bC\(\s*{re.escape(col)}\b", formula):
-            continue
-        values, unreadable = parse_numbers(table[col])
-        if col not in (effect, variance) and not np.isfinite(values).any():
-            continue  # a text column: a category
-        if unreadable.any():
-            rows = np.flatnonzero(unreadable)
-            shown = ", ".join(f"row {i + 1} {str(table[col].iloc[i])!r}" for i in rows[:5])
-            more = f" and {rows.size - 5} more" if rows.size > 5 else ""
-            raise InputError(
-                f"{where(project, 'model')}: the column {col!r} holds numbers, but {shown}{more} "
-                f"{'is' if rows.size == 1 else 'are'} not a number. Write a number or leave the "
-                f"cell blank (blank rows are left out of the fit); write C({col}) in the "
-                "moderators if the column is a category."
-            )
-        out[col] = values
-    return out
+    columns = [c for c in dict.fromkeys(needed)
+               if c not in labels and not re.search(rf"\bC\(\s*{re.escape(c)}\b", formula)]
+    return number_columns(
+        table, columns, numbers=needed[:2], where=where(project, "model"),
+        hint="write C({col}) in the moderators if the column is a category",
+    )
 
 
 def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> tuple[Any, np.ndarray, Any]:
@@ -112,7 +95,7 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
         data[col] = values[ok]
     for col in dict.fromkeys(needed):  # labels and categories: white space is not a level
         if col not in numeric:
-            data[col] = [_WHITE.sub(" ", str(v).translate(_INVISIBLE)).strip() for v in data[col].tolist()]
+            data[col] = label_text(data[col].astype(str))
     options = {k: model[k] for k in ("method", "test", "nested", "cluster") if k in model}
     reg = envlink.MetaRegression(moderators=formula, **options)
     try:

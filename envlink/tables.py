@@ -353,7 +353,6 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
     return p
 
 
-_INVISIBLE = dict.fromkeys(map(ord, "\u200b\u200c\u200d\u2060\ufeff\u00ad"))
 _MINUS = dict.fromkeys(map(ord, "\u2212\u2010\u2011\u2012\u2013\ufe63\uff0d"), "-")
 #: cell texts that mean "no value" in compiled tables (common practice)
 MISSING_WORDS = ("nan", "na", "n/a", "none", "null", "-", "--", "?")
@@ -379,7 +378,7 @@ def parse_numbers(values: pd.Series) -> tuple[NDArray[np.float64], NDArray[np.bo
         out = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
         return out, np.zeros(len(values), dtype=bool)
     text = pd.Series([cell_text(v) for v in values.tolist()], index=values.index, dtype="string")
-    text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(_INVISIBLE).translate(_MINUS).strip())
+    text = text.map(lambda v: unicodedata.normalize("NFKC", v).translate(INVISIBLE_CHARS).translate(_MINUS).strip())
     text = text.where(~text.str.lower().isin(MISSING_WORDS), "")
     comma = text.str.fullmatch(r"[+-]?\d*,\d+")
     # a '.' in a word ('approx. 5') says nothing about how the numbers are written
