@@ -11,6 +11,7 @@ from __future__ import annotations
 __all__ = [
     "EnvlinkError",
     "InputError",
+    "FieldError",
     "GridError",
     "ModelError",
     "EnvlinkWarning",
@@ -24,6 +25,41 @@ class EnvlinkError(Exception):
 
 class InputError(EnvlinkError, ValueError):
     """Bad user input: a missing column, an unreadable table, a bad option value."""
+
+
+class FieldError(InputError):
+    """One cell of a table that cannot be used: its field, a reason and a short QA code.
+
+    The locate stage turns it into a rejected row (the code in ``locate_flags``, the
+    message in ``locate_notes``) instead of stopping the run.
+
+    Attributes
+    ----------
+    field : str
+        The field the text was read for (e.g. ``"lat"``, ``"period"``).
+    reason : str
+        Short human reason, naming the offending value.
+    code : str
+        Short lower-case QA code, e.g. ``"lat_out_of_range"``.
+    text : str
+        The text that was given.
+
+    Examples
+    --------
+    >>> str(FieldError("period", "month 13 does not exist", "impossible_date", "2011-13"))
+    "Cannot read period '2011-13': month 13 does not exist [impossible_date]."
+    """
+
+    def __init__(self, field: str, reason: str, code: str, text: str = "") -> None:
+        super().__init__(field, reason, code, text)  # all four in args: pickles
+        self.field = field
+        self.reason = reason
+        self.code = code
+        self.text = text
+
+    def __str__(self) -> str:
+        shown = f" {self.text!r}" if self.text else ""
+        return f"Cannot read {self.field}{shown}: {self.reason} [{self.code}]."
 
 
 class GridError(EnvlinkError, OSError):

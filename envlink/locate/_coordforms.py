@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from decimal import Decimal
 
 from envlink._util import INVISIBLE_CHARS as _INVISIBLE
-from envlink.errors import InputError
+from envlink.errors import FieldError
 
 __all__ = [
     "COORDINATE_ERRORS",
@@ -61,7 +61,7 @@ _UNIT_NAMES = ("degrees", "minutes", "seconds")
 _UNIT_SYMBOLS = ("°", "'", '"')
 
 
-class CoordinateError(InputError):
+class CoordinateError(FieldError):
     """A coordinate text that cannot be used, with the field, a reason and a QA code.
 
     Attributes
@@ -81,17 +81,6 @@ class CoordinateError(InputError):
     >>> str(err)
     "Cannot read lat '95': latitude 95.0 is beyond ±90 [lat_out_of_range]."
     """
-
-    def __init__(self, field: str, reason: str, code: str, text: str = "") -> None:
-        super().__init__(field, reason, code, text)
-        self.field = field
-        self.reason = reason
-        self.code = code
-        self.text = text
-
-    def __str__(self) -> str:
-        shown = f" {self.text!r}" if self.text else ""
-        return f"Cannot read {self.field}{shown}: {self.reason} [{self.code}]."
 
 
 class Unreadable(CoordinateError):

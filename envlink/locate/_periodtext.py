@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 from typing import Literal
 
 from envlink._util import INVISIBLE_CHARS as _INVISIBLE
-from envlink.errors import InputError
+from envlink.errors import FieldError
 
 Unit = Literal["day", "month", "year"]
 Precision = Literal["day", "month", "season", "year", "years"]
@@ -27,7 +27,7 @@ MONTH_NAMES = tuple(calendar.month_name[1:])
 MONTH_ABBR = tuple(calendar.month_abbr[1:])
 
 
-class PeriodError(InputError):
+class PeriodError(FieldError):
     """A period text that cannot be used, with the field, a reason and a QA code.
 
     Attributes
@@ -50,17 +50,6 @@ class PeriodError(InputError):
     >>> str(err)
     "Cannot read period '2011-13': month 13 does not exist [impossible_date]."
     """
-
-    def __init__(self, field: str, reason: str, code: str, text: str = "") -> None:
-        super().__init__(field, reason, code, text)
-        self.field = field
-        self.reason = reason
-        self.code = code
-        self.text = text
-
-    def __str__(self) -> str:
-        shown = f" {self.text!r}" if self.text else ""
-        return f"Cannot read {self.field}{shown}: {self.reason} [{self.code}]."
 
 
 @dataclass(frozen=True)
