@@ -55,9 +55,28 @@ def _workers(grid: xr.DataArray, volume: int, n_jobs: int) -> int:
         return 1
     if grid.chunks is None and bool(getattr(grid.variable, "_in_memory", True)):
         return 1
+    if _cheap_reads(grid):
+        return 1
     env = os.environ.get("ENVLINK_READ_WORKERS")
     n = int(env) if env and env.isdigit() else (os.cpu_count() or 1)
     return max(1, min(n, n_jobs, 16))
+
+
+def _cheap_reads(grid: xr.DataArray) -> bool:
+    """Uncompressed contiguous storage read in whole rows: one process is faster.
+
+    Such reads cost about a memory copy, less than forking readers and sending their
+    series back; compressed or tiled reads are worth spreading over processes.
+    """
+    import json
+
+    try:
+        storage = json.loads(str(grid.attrs.get("envlink_storage", "{}")))
+    except ValueError:
+        return False
+    if not isinstance(storage, dict) or storage.get("chunks") != "contiguous" or storage.get("compressed"):
+        return False
+    return grid.chunks is None or int(min(grid.chunks[2])) == grid.shape[2]
 
 
 def _read_rect(

@@ -91,6 +91,74 @@ def _chunks(chunks: Any) -> Any:
     return chunks
 
 
+#: Target bytes of a default dask chunk: whole series over spatial blocks.
+_CHUNK_BYTES_CONTIGUOUS = 32 * 2**20
+_CHUNK_BYTES_MAX = 128 * 2**20
+
+
+def _is_time_dim(ds: xr.Dataset, dim: str) -> bool:
+    if dim.lower() in ("time", "t", "date", "valid_time"):
+        return True
+    if dim not in ds.variables:
+        return False
+    attrs = ds.variables[dim].attrs
+    return " since " in str(attrs.get("units", "")) or attrs.get("axis") == "T" or attrs.get("standard_name") == "time"
+
+
+def storage_chunks_for(ds: xr.Dataset, name: str) -> dict[str, int]:
+    """Default dask chunks of a variable that follow its storage.
+
+    A chunked variable (netCDF-4/HDF5 ``chunksizes``, Zarr ``chunks``) gets its file
+    chunks along every dimension except time, which is whole (so a cell's series is
+    one task) unless that makes a chunk larger than 128 MiB, when it is the largest
+    multiple of the file's time chunk that fits. A contiguous (or classic netCDF)
+    variable gets whole series over bands of whole rows of about 32 MiB: each task
+    is then one run of contiguous reads. Variables of fewer than two dims: ``{}``.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> ds = xr.Dataset({"v": xr.Variable(("time", "lat", "lon"), np.broadcast_to(np.float32(0), (360, 720, 1440)),
+    ...                                   encoding={"chunksizes": (12, 90, 180)})})
+    >>> storage_chunks_for(ds, "v")
+    {'time': 360, 'lat': 90, 'lon': 180}
+    >>> ds["v"].encoding = {"contiguous": True}
+    >>> storage_chunks_for(ds, "v")
+    {'time': 360, 'lat': 16, 'lon': 1440}
+    """
+    var = ds.variables[name]
+    if var.ndim < 2:
+        return {}
+    dims = [str(d) for d in var.dims]
+    sizes = [int(n) for n in var.shape]
+    item = int(var.dtype.itemsize) if var.dtype.kind in "iufcb" else 8
+    enc = var.encoding
+    file_chunks = enc.get("chunksizes") or enc.get("chunks")
+    if not file_chunks and isinstance(enc.get("preferred_chunks"), Mapping):
+        pref = enc["preferred_chunks"]
+        file_chunks = [pref.get(d, n) for d, n in zip(dims, sizes, strict=True)]
+    times = [i for i, d in enumerate(dims) if _is_time_dim(ds, d)]
+    ti = times[0] if times else None
+    if file_chunks and len(file_chunks) == var.ndim and not enc.get("contiguous"):
+        spec = [max(1, min(int(c), n)) for c, n in zip(file_chunks, sizes, strict=True)]
+        if ti is not None:
+            other = int(np.prod([c for i, c in enumerate(spec) if i != ti])) * item
+            fit = max(1, _CHUNK_BYTES_MAX // max(other, 1))
+            tc = spec[ti]
+            spec[ti] = sizes[ti] if fit >= sizes[ti] else max(tc, (fit // tc) * tc)
+        return dict(zip(dims, spec, strict=True))
+    # contiguous: whole last dim, whole time, rows of the second-last dim by budget
+    spec = [1] * var.ndim
+    spec[-1] = sizes[-1]
+    if ti is not None:
+        spec[ti] = sizes[ti]
+    row_dim = var.ndim - 2 if ti != var.ndim - 2 else var.ndim - 3
+    if row_dim >= 0:
+        per_row = int(np.prod([c for i, c in enumerate(spec) if i != row_dim])) * item
+        spec[row_dim] = int(min(sizes[row_dim], max(1, _CHUNK_BYTES_CONTIGUOUS // max(per_row, 1))))
+    return dict(zip(dims, spec, strict=True))
+
+
 def check_classic_size(path: Path) -> None:
     """Reject a classic netCDF file (CDF-1/CDF-2) shorter than its header says it is.
 
@@ -170,8 +238,11 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
         kwargs["consolidated"] = _zarr_consolidated(path)
     elif engine is not None:
         kwargs["engine"] = engine
+    follow = kwargs["chunks"] == "auto"
+    if follow:
+        kwargs["chunks"] = None  # lazy; dask chunks that follow the storage are set below
     try:
-        return xr.open_dataset(path, **kwargs)
+        ds = xr.open_dataset(path, **kwargs)
     except Exception as exc:  # noqa: BLE001 - every backend failure means an unreadable file
         kind = "Zarr store" if _is_zarr(path) else "grid file"
         if kind == "grid file" and not _has_grid_signature(path):
@@ -186,6 +257,11 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
             f"Cannot open the {kind} {str(path)!r}: {type(exc).__name__}: {reason}. "
             "It may be truncated, corrupt or not a netCDF/Zarr/GeoTIFF grid."
         ) from None
+    if follow:
+        for name in list(ds.data_vars):
+            if ds[name].ndim >= 2:
+                ds[name] = ds[name].chunk(storage_chunks_for(ds, str(name)))
+    return ds
 
 
 #: File signatures of the formats open_raw reads: netCDF classic / 64-bit offset /
