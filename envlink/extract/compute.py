@@ -239,17 +239,20 @@ def nearest_valid(
         new = np.setdiff1d(cand[keep], cells)
         # candidates already gathered with the first read (near cells lacking data)
         have = np.isin(new, spare_cells)
+        parts, part_cells = [X], [cells]
         if have.any():
             o = np.argsort(spare_cells)
-            X = np.concatenate([X, spare_X[o[np.searchsorted(spare_cells[o], new[have])]]], axis=0)
-            cells = np.concatenate([cells, new[have]])
+            parts.append(spare_X[o[np.searchsorted(spare_cells[o], new[have])]])
+            part_cells.append(new[have])
         rest = new[~have]
         if rest.size:
             with _progress(show, lat.size, rest.size, "attach: reading candidate cells") as bar:
-                X1 = read_cells(grid, rest, progress=bar.update)
-            X = np.concatenate([X, X1], axis=0)
-            cells = np.concatenate([cells, rest])
+                parts.append(read_cells(grid, rest, progress=bar.update))
+            part_cells.append(rest)
         del spare_X
+        if len(parts) > 1:  # one copy of the (large) cell series, not one per part
+            X, cells = np.concatenate(parts, axis=0), np.concatenate(part_cells)
+        del parts
         order = np.argsort(cells, kind="stable")
         # candidate pairs (row, cell) in order of distance, skipping known-empty cells
         counts = np.diff(ptr)
