@@ -143,6 +143,10 @@ def attach(
     if clash:
         raise InputError(f"The table already has column {clash[0]!r}; choose another --name so no input column is overwritten.")
     st, win, sp_rule = parse_stat(stat, threshold), parse_window(window), parse_spatial(spatial)
+    if threshold is not None and st.kind not in ("above", "degree-days"):
+        raise param_error("threshold", caller, "given only with stat 'above' or 'degree-days'", threshold)
+    if threshold is not None and st.threshold is not None and float(threshold) != st.threshold:
+        raise param_error("threshold", caller, f"left out, or equal to the T of stat={stat!r}", threshold)
     base_years = parse_baseline(baseline)
     if time_weights not in ("duration", "equal"):
         raise param_error("time_weights", caller, "'duration' or 'equal'", time_weights)
@@ -211,6 +215,13 @@ def attach(
     flags.add(site_ok & ~period_ok, "no_period")
     flags.add(wins.clipped, "date_clipped_to_calendar")
     active = site_ok & period_ok
+    wkt = table["site_wkt"].astype("string").fillna("").to_numpy() if "site_wkt" in table else np.full(n, "")
+    wkt = wkt.astype(str)
+    gap = _in_lon_gap(geom, lon) & active
+    if sp_rule.kind == "polygon":
+        gap &= np.char.str_len(np.char.strip(wkt)) == 0
+    flags.add(gap, "outside_grid")
+    active &= ~gap
     ws = np.where(wins.ok, wins.start, b0)
     we = np.where(wins.ok, wins.end, b1)
     if st.kind == "mmm":
@@ -221,8 +232,7 @@ def attach(
     active &= spans.has
 
     if sp_rule.kind == "polygon":
-        wkt = table["site_wkt"].astype("string").fillna("").to_numpy() if "site_wkt" in table else np.full(n, "")
-        srcs = area_sources(geom, lat, lon, wkt.astype(str), active)
+        srcs = area_sources(geom, lat, lon, wkt, active)
     else:
         srcs = point_sources(geom, lat, lon, active, sp_rule.kind, sp_rule.km)
     flags.extend(srcs.row_flags)
@@ -261,6 +271,35 @@ def attach(
         stored = _cache.save(cache_dir, key, arrays)
         prov["cache"] = "stored" if stored is not None else "not stored"
     return _assemble(table, name, arrays, prov)
+
+
+def _in_lon_gap(geom: GridGeometry, lon: np.ndarray) -> np.ndarray:
+    """Sites in a longitude gap of a regional lat/lon grid (one crossing the antimeridian).
+
+    A regional grid from 170°E to 170°W is stored, in [-180, 180), as -179.5 … -170.5
+    then 170.5 … 179.5: its centres jump across the longitudes it does not cover. A
+    site in that jump (e.g. at 0°) is beyond the grid's edges, never in the cells on
+    either side of it. The jump is a spacing over 1.5 times the median; the covered
+    part ends half a (neighbouring) step past each centre.
+
+    Examples
+    --------
+    >>> from envlink.testing import make_grid
+    >>> g = make_grid(np.zeros((1, 1, 4)), lat=[0.5], lon=[-179.5, -178.5, 178.5, 179.5])
+    >>> _in_lon_gap(GridGeometry(g), np.array([179.9, -178.1, 0.0, 177.5])).tolist()
+    [False, False, True, True]
+    """
+    out = np.zeros(lon.shape, dtype=bool)
+    if geom.kind != "regular" or geom.is_global or geom.lon.size < 3:
+        return out
+    c = np.asarray(geom.lon, dtype=np.float64)
+    d = np.diff(c)
+    step = float(np.median(d))
+    for k in np.nonzero(d > 1.5 * step)[0]:
+        left = c[k] + 0.5 * (d[k - 1] if k > 0 else step)
+        right = c[k + 1] - 0.5 * (d[k + 1] if k + 1 < d.size else step)
+        out |= (lon > left + 1e-9) & (lon < right - 1e-9)
+    return out
 
 
 def _identity(grid: xr.DataArray) -> object:

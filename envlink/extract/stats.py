@@ -212,7 +212,16 @@ def window_stat(
                 d = np.where(valid, S - np.nan_to_num(c), 0.0)
                 m1 = _wsum(d, b, src, sp, e0, e1) / W
                 m2 = _wsum(d * d, b, src, sp, e0, e1) / W
-                val = np.sqrt(np.maximum(m2 - m1 * m1, 0.0))
+                var = m2 - m1 * m1
+                # Differences of cumulative sums carry round-off of about eps times
+                # the running total of d² (weighted) up to the window's last step;
+                # a variance below that is zero (a window with one value, or equal
+                # values, has std 0 exactly, not ~1e-8 from the square root).
+                dd = np.cumsum(d * d * b, axis=1)[src, sp.i1]
+                floor = 64.0 * np.finfo(np.float64).eps * (dd + m2 * W) / W
+                nvalid = _wsum(vf, np.ones_like(length), src, sp, np.ones_like(sp.ov0), np.ones_like(sp.ov1))
+                var = np.where((var <= floor) | (nvalid <= 1), 0.0, var)
+                val = np.sqrt(var)
         elif kind == "sum":
             frac0 = sp.ov0 / steps.length[sp.i0]
             frac1 = sp.ov1 / steps.length[sp.i1]

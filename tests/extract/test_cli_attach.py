@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -208,10 +211,15 @@ def test_attach_unwritable_cache_warns_and_writes_output(files, monkeypatch, cap
     (files / "blocker").write_text("a regular file\n")
     monkeypatch.setenv("ENVLINK_CACHE", str(files / "blocker" / "cache"))
     out = files / "out.csv"
-    with pytest.warns(CacheWarning, match=r"cache at '.*blocker.cache' could not be written .*not cached"):
+    # the command line prints envlink's warnings as one plain line on stderr
+    with warnings.catch_warnings():
+        warnings.simplefilter("always", CacheWarning)
         rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
                    "-o", str(out)])
     assert rc == 0
+    err = capsys.readouterr().err
+    assert re.search(r"envlink attach: warning: The cache at '.*blocker.cache' could not be written .*not cached", err)
+    assert "Traceback" not in err
     assert_allclose(float(pd.read_csv(out)["sst"][0]), 14.0, rtol=1e-12)
     assert "unexpected error" not in capsys.readouterr().err
 

@@ -67,6 +67,8 @@ def test_every_row_in_order_input_unchanged_new_columns(grid):
         ({"time_weights": "days"}, r"The 'time_weights' parameter of attach must be 'duration' or 'equal'; got 'days'"),
         ({"min_coverage": 2}, r"The 'min_coverage' parameter of attach must be a fraction from 0 to 1; got 2"),
         ({"mmm": 28.0}, r"The 'mmm' parameter of attach must be given only with stat='dhw-max'"),
+        ({"threshold": 3.0}, r"The 'threshold' parameter of attach must be given only with stat 'above' or 'degree-days'; got 3"),
+        ({"stat": "above:3", "threshold": 5.0}, r"The 'threshold' parameter of attach must be left out, or equal to the T"),
         ({"stat": "anomaly", "baseline": "1950-1960"}, r"The baseline 1950-1960 holds no time step"),
     ],
 )

@@ -223,3 +223,19 @@ def test_polygon_on_projected_equal_area_grid():
             den += a
     assert_allclose(out["v"][0], num / den, rtol=1e-5)
     assert out["v_flags"][0] == ""
+
+
+def test_regional_grid_across_antimeridian_flags_sites_in_its_longitude_gap():
+    # A grid from 170°E to 170°W, stored in [-180, 180) as -179.5..-170.5 then
+    # 170.5..179.5: sites at 0° or 165°W lie beyond its edges (DESIGN.md §6.3, §6.4).
+    lon = np.concatenate([np.arange(-179.5, -170.0, 1.0), np.arange(170.5, 180.0, 1.0)])
+    v = np.arange(2.0 * 3 * lon.size).reshape(2, 3, lon.size)
+    g = make_grid(v, lat=[-0.5, 0.5, 1.5], lon=lon, start="2000-01-01", freq="MS")
+    t = table([0.2, 0.2, 0.2, 0.2, 0.2], [179.9, -179.9, 0.0, -165.0, 170.2], "2000-01-01", "2000-01-31")
+    for rule in ("nearest", "bilinear", "buffer:50km", "nearest-valid:100km"):
+        out = attach(t, g, name="v", spatial=rule)
+        assert out["v_flags"].tolist()[2:4] == ["outside_grid", "outside_grid"], rule
+        assert np.isnan(out["v"][2:4]).all() and np.isnan(out["v_cell_lat"][2:4]).all()
+        assert np.isfinite(out["v"][[0, 1, 4]]).all(), rule
+    near = attach(t, g, name="v")
+    assert_allclose(near["v"][[0, 1, 4]], v[0, 1, [19, 0, 10]], rtol=1e-12)

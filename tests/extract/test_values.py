@@ -145,3 +145,19 @@ def test_docs_worked_example():
     }
     for stat, value in expected.items():
         assert_allclose(attach(t, g, name="v", stat=stat)["v"], [value], rtol=1e-12, err_msg=stat)
+
+
+def test_std_of_one_value_or_equal_values_is_exactly_zero():
+    # Population std of a single value, or of equal values, is 0 by definition
+    # (common practice); cumulative-sum round-off must not leave ~1e-8.
+    rng = np.random.default_rng(5)
+    v = 25.0 + rng.normal(0.0, 2.0, (36, 1, 1))
+    v[10:13] = 21.123456789
+    g = make_grid(v, lat=[0.5], lon=[0.5], start="2000-01-01", freq="MS")
+    t = table([0.5] * 4, [0.5] * 4, ["2000-12-01", "2001-03-01", "2000-11-01", "2001-01-01"],
+              ["2000-12-31", "2001-03-10", "2001-01-31", "2001-02-28"])
+    out = attach(t, g, name="v", stat="std")
+    assert out["v"].tolist()[:3] == [0.0, 0.0, 0.0]
+    # two different months: np.std with the months' day weights (31, 28)
+    ref = np.sqrt(np.cov(v[12:14, 0, 0], aweights=[31, 28], ddof=0))
+    assert_allclose(out["v"][3], ref, rtol=1e-9)
