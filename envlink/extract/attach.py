@@ -159,10 +159,15 @@ def attach(
     if mmm is not None and st.kind != "dhw-max":
         raise param_error("mmm", caller, "given only with stat='dhw-max'", mmm)
     if mmm is not None and not isinstance(mmm, xr.DataArray):
+        mmm_allowed = "a finite number in degC or a DataArray with dims (lat, lon)"
+        if isinstance(mmm, bool | np.bool_):
+            raise param_error("mmm", caller, mmm_allowed, mmm)
         try:
             mmm = float(mmm)
         except (TypeError, ValueError):
-            raise param_error("mmm", caller, "a number in degC or a DataArray with dims (lat, lon)", mmm) from None
+            raise param_error("mmm", caller, mmm_allowed, mmm) from None
+        if not np.isfinite(mmm):
+            raise param_error("mmm", caller, mmm_allowed, mmm)
     require_columns(table, ["site_lat", "site_lon", "period_start", "period_end"], what="table (run envlink.locate first)")
 
     geom = GridGeometry(grid)
