@@ -206,7 +206,9 @@ def attach(
 
     lat = pd.to_numeric(table["site_lat"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
     lon = pd.to_numeric(table["site_lon"], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
-    lon = np.where(np.isfinite(lon), np.mod(lon + 180.0, 360.0) - 180.0, lon)
+    lat = np.where(np.isfinite(lat) & (np.abs(lat) <= 90.0), lat, np.nan)
+    fin = np.isfinite(lon)
+    lon = np.where(fin, np.mod(np.where(fin, lon, 0.0) + 180.0, 360.0) - 180.0, np.nan)
     rejected = (
         (table["locate_status"].astype("string") == "rejected").fillna(False).to_numpy(dtype=bool)
         if "locate_status" in table

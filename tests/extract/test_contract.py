@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -203,3 +205,18 @@ def test_damaged_cache_entry_is_a_miss_with_a_warning(grid, tmp_path, damage):
     assert again["w_flags"].tolist() == first["v_flags"].tolist()
     third = attach(t, grid, name="u", cache_dir=tmp_path)  # the entry was written again
     assert third.attrs["envlink"]["u"]["cache"] == "hit"
+
+
+def test_impossible_coordinates_are_site_rejected_without_numpy_warnings(grid):
+    # |lat| > 90 or an infinite longitude are no coordinates (ISO 6709 ranges);
+    # an empty table gives an empty result with the six columns.
+    t = table([95.0, -91.0, 0.5, 0.5], [0.5, 0.5, np.inf, 360.5], "2000-01-01", "2000-01-31")
+    t.index = ["x", "x", "y", "z"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        out = envlink.attach(t, grid, name="v")
+    assert out["v_flags"].tolist() == ["site_rejected"] * 3 + [""]
+    assert list(out.index) == ["x", "x", "y", "z"]
+    assert_allclose(out["v"].iloc[3], envlink.attach(table([0.5], [0.5], "2000-01-01", "2000-01-31"), grid, name="v")["v"][0], rtol=1e-12)
+    empty = envlink.attach(t.iloc[:0], grid, name="v")
+    assert len(empty) == 0 and "v_coverage" in empty.columns
