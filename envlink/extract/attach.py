@@ -21,7 +21,13 @@ from envlink.errors import InputError, param_error
 from envlink.extract import cache as _cache
 from envlink.extract.compute import compute_values, nearest_valid
 from envlink.extract.flags import RowFlags
-from envlink.extract.options import parse_baseline, parse_spatial, parse_stat, parse_window
+from envlink.extract.options import (
+    StatSpec,
+    parse_baseline,
+    parse_spatial,
+    parse_stat,
+    parse_window,
+)
 from envlink.extract.reader import read_cells
 from envlink.extract.sources import area_sources, point_sources
 from envlink.extract.spatial import GridGeometry
@@ -261,7 +267,17 @@ def attach(
     flags.extend(extra)
     got = active & (srcs.row_src >= 0)
     low = got & (cov < min_cov) & (cov > 0)
-    flags.add(got & (cov == 0), "no_data_in_window")
+    no_data = got & (cov == 0)
+    if st.kind == "anomaly" and no_data.any():
+        # the cell has data, but no step of the window has a baseline value for its
+        # calendar month / day (e.g. 29 February against a baseline of common years)
+        _, raw_cov, _ = compute_values(
+            X, xrow.ravel(), srcs, steps, spans, StatSpec("mean"), time_weights, in_base, None, geom, "nearest"
+        )
+        no_base = no_data & (raw_cov > 0)
+        flags.add(no_base, "no_baseline_in_window")
+        no_data &= ~no_base
+    flags.add(no_data, "no_data_in_window")
     flags.add(got & (cov > 0) & (cov < 1.0 - 1e-9), "partial_coverage")
     flags.add(low, "below_min_coverage")
     value = np.where(got & ~low & (cov > 0), value, np.nan)

@@ -136,3 +136,19 @@ def test_anomaly_against_daily_climatology():
     anom = [x - clim.get((d.month, d.day), np.nan) for d, x in win.items()]
     assert_allclose(out["a"], [np.nanmean(anom)], rtol=1e-12)
     assert out["a_flags"][0] == "partial_coverage"  # 29 February has no baseline day
+
+
+def test_anomaly_of_a_day_without_baseline_says_so_not_no_data():
+    # 29 February 2012 against a 2010-2011 baseline: the cell has data that day, but
+    # no baseline day of the same calendar day exists (pandas: no (2, 29) key).
+    rng = np.random.default_rng(9)
+    dates = pd.date_range("2010-01-01", "2012-12-31", freq="D")
+    v = 26.0 + rng.normal(0, 1, dates.size)
+    g = daily_point_grid(v, start="2010-01-01")
+    base = pd.Series(v, index=dates)["2010":"2011"]
+    assert (2, 29) not in base.groupby([base.index.month, base.index.day]).mean().index
+    t = table([0.5, 0.5], [0.5, 0.5], ["2012-02-29", "2013-06-01"], ["2012-02-29", "2013-06-30"])
+    out = attach(t, g, name="a", stat="anomaly", baseline="2010-2011")
+    assert np.isnan(out["a"]).all()
+    assert out["a_flags"].tolist() == ["no_baseline_in_window", "outside_grid_time"]
+    assert out["a_coverage"][0] == 0.0
