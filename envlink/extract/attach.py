@@ -302,8 +302,10 @@ def _in_lon_gap(geom: GridGeometry, lon: np.ndarray) -> np.ndarray:
     A regional grid from 170°E to 170°W is stored, in [-180, 180), as -179.5 … -170.5
     then 170.5 … 179.5: its centres jump across the longitudes it does not cover. A
     site in that jump (e.g. at 0°) is beyond the grid's edges, never in the cells on
-    either side of it. The jump is a spacing over 1.5 times the median; the covered
-    part ends half a (neighbouring) step past each centre.
+    either side of it. Only grids whose centres run on across ±180° are looked at
+    (so stretched regional grids are left alone); the jump is a spacing over 1.5
+    times the median, and the covered part ends half a (neighbouring) step past
+    each centre.
 
     Examples
     --------
@@ -318,6 +320,8 @@ def _in_lon_gap(geom: GridGeometry, lon: np.ndarray) -> np.ndarray:
     c = np.asarray(geom.lon, dtype=np.float64)
     d = np.diff(c)
     step = float(np.median(d))
+    if c[0] + 360.0 - c[-1] > 1.5 * step:  # does not run on across ±180°: no such gap
+        return out
     for k in np.nonzero(d > 1.5 * step)[0]:
         left = c[k] + 0.5 * (d[k - 1] if k > 0 else step)
         right = c[k + 1] - 0.5 * (d[k + 1] if k + 1 < d.size else step)

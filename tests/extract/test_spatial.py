@@ -239,3 +239,13 @@ def test_regional_grid_across_antimeridian_flags_sites_in_its_longitude_gap():
         assert np.isfinite(out["v"][[0, 1, 4]]).all(), rule
     near = attach(t, g, name="v")
     assert_allclose(near["v"][[0, 1, 4]], v[0, 1, [19, 0, 10]], rtol=1e-12)
+
+
+def test_stretched_regional_grid_has_no_longitude_gap():
+    # Spacing growing eastwards (1, 1, 2, 4 degrees) is not a gap: a site between
+    # two centres belongs to the cell whose edges (midpoints) contain it.
+    lon = np.array([0.5, 1.5, 2.5, 4.5, 8.5])
+    g = make_grid(np.arange(10.0).reshape(2, 1, 5), lat=[0.5], lon=lon, start="2000-01-01", freq="MS")
+    out = attach(table([0.5, 0.5], [6.0, 7.0], "2000-01-01", "2000-01-31"), g, name="v")
+    assert out["v_flags"].tolist() == ["", ""]
+    assert_allclose(out["v"], [3.0, 4.0], rtol=1e-12)
