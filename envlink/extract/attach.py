@@ -231,8 +231,9 @@ def attach(
     wkt = table["site_wkt"].astype("string").fillna("").to_numpy() if "site_wkt" in table else np.full(n, "")
     wkt = wkt.astype(str)
     gap = _in_lon_gap(geom, lon) & active
-    if sp_rule.kind == "polygon":
-        gap &= np.char.str_len(np.char.strip(wkt)) == 0
+    if sp_rule.kind == "polygon" and _lon_gaps(geom):
+        has_wkt = np.char.str_len(np.char.strip(wkt)) > 0
+        gap = np.where(has_wkt, _polygon_in_lon_gap(geom, wkt, active & has_wkt), gap)
     flags.add(gap, "outside_grid")
     active &= ~gap
     ws = np.where(wins.ok, wins.start, b0)
@@ -315,17 +316,48 @@ def _in_lon_gap(geom: GridGeometry, lon: np.ndarray) -> np.ndarray:
     [False, False, True, True]
     """
     out = np.zeros(lon.shape, dtype=bool)
+    for left, right in _lon_gaps(geom):
+        out |= (lon > left + 1e-9) & (lon < right - 1e-9)
+    return out
+
+
+def _lon_gaps(geom: GridGeometry) -> list[tuple[float, float]]:
+    """The uncovered longitude intervals of a regional grid across ±180° (see above)."""
     if geom.kind != "regular" or geom.is_global or geom.lon.size < 3:
-        return out
+        return []
     c = np.asarray(geom.lon, dtype=np.float64)
     d = np.diff(c)
     step = float(np.median(d))
     if c[0] + 360.0 - c[-1] > 1.5 * step:  # does not run on across ±180°: no such gap
-        return out
+        return []
+    gaps = []
     for k in np.nonzero(d > 1.5 * step)[0]:
         left = c[k] + 0.5 * (d[k - 1] if k > 0 else step)
         right = c[k + 1] - 0.5 * (d[k + 1] if k + 1 < d.size else step)
-        out |= (lon > left + 1e-9) & (lon < right - 1e-9)
+        gaps.append((float(left), float(right)))
+    return gaps
+
+
+def _polygon_in_lon_gap(geom: GridGeometry, wkt: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Rows (of ``rows``) whose polygon has every vertex in the grid's longitude gap."""
+    import shapely
+
+    out = np.zeros(wkt.shape, dtype=bool)
+    idx = np.nonzero(rows)[0]
+    if idx.size == 0:
+        return out
+    try:
+        geoms = shapely.from_wkt(wkt[idx], on_invalid="ignore")
+    except shapely.errors.ShapelyError:
+        return out
+    xy, part = shapely.get_coordinates(geoms, return_index=True)
+    if part.size == 0:
+        return out
+    lon = np.mod(xy[:, 0] + 180.0, 360.0) - 180.0
+    inside = _in_lon_gap(geom, lon)
+    n_all = np.bincount(part, minlength=idx.size)
+    n_gap = np.bincount(part, weights=inside.astype(np.float64), minlength=idx.size)
+    out[idx] = (n_all > 0) & (n_gap == n_all)
     return out
 
 

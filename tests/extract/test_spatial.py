@@ -249,3 +249,14 @@ def test_stretched_regional_grid_has_no_longitude_gap():
     out = attach(table([0.5, 0.5], [6.0, 7.0], "2000-01-01", "2000-01-31"), g, name="v")
     assert out["v_flags"].tolist() == ["", ""]
     assert_allclose(out["v"], [3.0, 4.0], rtol=1e-12)
+
+
+def test_polygon_wholly_in_the_longitude_gap_is_outside_grid():
+    # Same 170°E-170°W grid: a polygon at 0-10°E touches none of its cells.
+    lon = np.concatenate([np.arange(-179.5, -170.0, 1.0), np.arange(170.5, 180.0, 1.0)])
+    g = make_grid(np.ones((2, 2, lon.size)), lat=[-0.5, 0.5], lon=lon, start="2000-01-01", freq="MS")
+    t = table([0.5, 0.5, 0.5], [5.0, 175.0, 5.0], "2000-01-01", "2000-01-31",
+              site_wkt=["POLYGON((0 0,10 0,10 1,0 1,0 0))", "POLYGON((174 0,176 0,176 1,174 1,174 0))", ""])
+    out = attach(t, g, name="v", spatial="polygon")
+    assert out["v_flags"].tolist() == ["outside_grid", "", "outside_grid"]
+    assert np.isnan(out["v"][[0, 2]]).all() and out["v"][1] == 1.0
