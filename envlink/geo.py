@@ -28,6 +28,7 @@ __all__ = [
     "cell_area_km2",
     "unwrap_polygon",
     "polygon_cell_overlaps",
+    "polygon_area_km2",
 ]
 
 #: IUGG mean Earth radius R1 in km (Moritz 2000, Geodetic Reference System 1980).
@@ -149,6 +150,21 @@ def _to_equal_area(geom, step_deg: float):  # noqa: ANN001, ANN202
     )
 
 
+def polygon_area_km2(geom, step_deg: float = 0.05) -> float:  # noqa: ANN001 - shapely geometry
+    """Spherical area (km²) of a lon/lat polygon, edges straight in lon/lat.
+
+    The polygon is unwrapped across the antimeridian (:func:`unwrap_polygon`),
+    densified to ``step_deg`` and measured in the Lambert cylindrical equal-area plane.
+
+    Examples
+    --------
+    >>> from shapely.geometry import box
+    >>> round(polygon_area_km2(box(0.0, 0.0, 1.0, 1.0)), 1)  # = cell_area_km2(0, 1, 1)
+    12363.7
+    """
+    return float(_to_equal_area(unwrap_polygon(geom), step_deg).area * EARTH_RADIUS_KM**2)
+
+
 def polygon_cell_overlaps(
     geom,  # noqa: ANN001 - shapely geometry in lon/lat degrees
     lat_edges: ArrayLike,
@@ -162,10 +178,14 @@ def polygon_cell_overlaps(
     ----------
     geom : shapely Polygon or MultiPolygon
         In lon/lat degrees; may cross the antimeridian (see :func:`unwrap_polygon`).
-    lat_edges, lon_edges : array-like
+    lat_edges : array-like
         Ascending cell edges (n + 1) in degrees.
+    lon_edges : array-like
+        Ascending shared cell edges (n + 1), or per-column ``(west, east)`` bounds of
+        shape (n, 2), ascending, for columns with gaps between them.
     wrap : bool
-        The grid covers the whole circle of longitude (cells are also tried 360° east).
+        Longitudes are periodic: the cells are also tried 360° east and west, so a
+        polygon written in any frame (e.g. 178°…182° or −178°…−175°) meets them.
 
     Returns
     -------
@@ -182,29 +202,36 @@ def polygon_cell_overlaps(
     >>> iy, ix, a, f = polygon_cell_overlaps(box(0.0, 0.0, 0.5, 1.0), [0, 1], [0, 1])
     >>> iy.tolist(), ix.tolist(), f.round(6).tolist()
     ([0], [0], [0.5])
+    >>> iy, ix, a, f = polygon_cell_overlaps(box(0.5, 0.0, 2.5, 1.0), [0, 1], [[0, 1], [2, 3]])
+    >>> ix.tolist(), f.round(6).tolist()  # the gap between 1° and 2° holds no cell
+    ([0, 1], [0.5, 0.5])
     """
     import shapely
 
     lat_e = np.asarray(lat_edges, dtype=np.float64)
-    lon_e = np.asarray(lon_edges, dtype=np.float64)
+    lon_b = np.asarray(lon_edges, dtype=np.float64)
+    if lon_b.ndim == 2:
+        west, east = lon_b[:, 0], lon_b[:, 1]
+    else:
+        west, east = lon_b[:-1], lon_b[1:]
+    ncol = west.size
     geom = unwrap_polygon(geom)
-    step = float(min(np.min(np.diff(lat_e)), np.min(np.diff(lon_e)))) / 4.0
+    step = float(min(np.min(np.diff(lat_e)), np.min(east - west))) / 4.0
     ea = _to_equal_area(geom, step)
     minx, miny, maxx, maxy = geom.bounds
-    shifts = [0.0, 360.0] if wrap else [0.0]
+    shifts = [-360.0, 0.0, 360.0] if wrap else [0.0]
     out_y, out_x, out_a, out_f = [], [], [], []
     y0 = max(int(np.searchsorted(lat_e, miny, side="right")) - 1, 0)
     y1 = min(int(np.searchsorted(lat_e, maxy, side="left")), lat_e.size - 1)
     for shift in shifts:
-        le = lon_e + shift
-        x0 = max(int(np.searchsorted(le, minx, side="right")) - 1, 0)
-        x1 = min(int(np.searchsorted(le, maxx, side="left")), le.size - 1)
-        if x1 <= x0 or y1 <= y0:
+        we, ee = west + shift, east + shift
+        cols = np.nonzero((ee > minx) & (we < maxx))[0]
+        if cols.size == 0 or y1 <= y0:
             continue
-        gy, gx = np.meshgrid(np.arange(y0, y1), np.arange(x0, x1), indexing="ij")
+        gy, gx = np.meshgrid(np.arange(y0, y1), cols, indexing="ij")
         iy, ix = gy.ravel(), gx.ravel()
         s, n = np.sin(np.radians(lat_e[iy])), np.sin(np.radians(lat_e[iy + 1]))
-        w, e = np.radians(le[ix]), np.radians(le[ix + 1])
+        w, e = np.radians(we[ix]), np.radians(ee[ix])
         boxes = shapely.box(w, s, e, n)
         inter = shapely.area(shapely.intersection(boxes, ea))
         keep = inter > 0.0
@@ -218,9 +245,9 @@ def polygon_cell_overlaps(
         return empty, empty, np.array([]), np.array([])
     iy_a, ix_a = np.concatenate(out_y), np.concatenate(out_x)
     a_a, f_a = np.concatenate(out_a), np.concatenate(out_f)
-    # the same cell reached in both frames (a polygon wider than the grid) adds up
-    key = iy_a * (lon_e.size) + ix_a
+    # the same cell reached in two frames (a polygon wider than the grid) adds up
+    key = iy_a * ncol + ix_a
     uniq, inv = np.unique(key, return_inverse=True)
     area = np.bincount(inv, weights=a_a)
     frac = np.bincount(inv, weights=f_a)
-    return uniq // lon_e.size, uniq % lon_e.size, area, frac
+    return uniq // ncol, uniq % ncol, area, frac

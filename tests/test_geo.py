@@ -137,3 +137,26 @@ def test_polygon_smaller_than_cell_keeps_the_cell():
     assert iy.tolist() == [0] and ix.tolist() == [0]
     # spherical area of the tiny box by the closed form
     assert_allclose(area, geo.cell_area_km2(0.4, 0.45, 0.05), rtol=1e-9)
+
+
+def test_polygon_overlaps_with_column_bounds_and_a_gap():
+    # columns 170..180 and 180..190 given as (west, east) bounds in a frame past 180°,
+    # with a gap 171..189 between them; the polygon is written in [-180, 180)
+    poly = Polygon([(170.5, 0.0), (-170.5, 0.0), (-170.5, 1.0), (170.5, 1.0)])
+    iy, ix, area, frac = geo.polygon_cell_overlaps(poly, [0.0, 1.0], [[170.0, 171.0], [189.0, 190.0]], wrap=True)
+    assert ix.tolist() == [0, 1]
+    assert_allclose(frac, [0.5, 0.5], rtol=1e-9)
+    # each part is half a 1°×1° equator cell (tests/reference/geodesy.py)
+    assert_allclose(area, [ref.CELL_1DEG_EQUATOR_KM2 / 2] * 2, rtol=1e-9)
+    # written 360° west of the frame, the same cells are found
+    west = Polygon([(-189.5, 0.0), (-170.5, 0.0), (-170.5, 1.0), (-189.5, 1.0)])
+    assert geo.polygon_cell_overlaps(west, [0.0, 1.0], [[170.0, 171.0], [189.0, 190.0]], wrap=True)[1].tolist() == [0, 1]
+
+
+def test_polygon_area_against_pyproj_geod_sphere():
+    # reference: pyproj.Geod on the same sphere, edges densified to 0.001°
+    poly = Polygon([(179.2, -3.0), (-178.4, -2.6), (-178.9, 1.5), (178.8, 0.7)])
+    p360 = shapely.transform(poly, lambda xy: np.column_stack([np.mod(xy[:, 0], 360.0), xy[:, 1]]))
+    x, y = shapely.segmentize(p360, 0.001).exterior.coords.xy
+    total, _ = SPHERE.polygon_area_perimeter(np.asarray(x), np.asarray(y))
+    assert_allclose(geo.polygon_area_km2(poly, 0.01), abs(total) / 1e6, rtol=1e-4)

@@ -13,6 +13,13 @@ for sites, in float64:
   across the antimeridian on global grids).
 - :func:`polygon_cells`: cells a polygon overlaps, weighted by the spherical area
   inside the polygon.
+
+Longitudes of a regular grid are handled in its *frame*: the columns in ascending
+order of longitude, unwrapped so that a regional grid crossing the antimeridian
+(stored in [-180, 180) as -179.5 … -170.5 then 170.5 … 179.5) reads 170.5 … 189.5.
+Its cells are contiguous across ±180°, and the longitudes it does not cover stay a
+gap: a cell next to a gap ends half its neighbour's step past its centre, never at
+the midpoint across the gap.
 """
 
 from __future__ import annotations
@@ -28,6 +35,7 @@ from envlink.geo import (
     cell_edges,
     great_circle_km,
     km_to_chord,
+    polygon_area_km2,
     polygon_cell_overlaps,
     unit_vectors,
 )
@@ -81,9 +89,9 @@ class GridGeometry:
             self.lat = np.asarray(grid["lat"].values, dtype=np.float64)
             self.lon = np.asarray(grid["lon"].values, dtype=np.float64)
             self.lat_edges = cell_edges(self.lat)
-            self.lon_edges = cell_edges(self.lon)
-            span = self.lon_edges[-1] - self.lon_edges[0]
-            self.is_global = bool(grid.attrs.get("envlink_global", span >= 360.0 - 1e-6))
+            step = float(np.median(np.diff(self.lon))) if self.lon.size > 1 else 360.0
+            self.is_global = bool(grid.attrs.get("envlink_global", self.lon.size * step >= 360.0 - 1e-6))
+            self._lon_frame()
         elif lat is not None and lon is not None and lat.ndim == 2:
             self.kind = "curvilinear"
             self.lat2 = np.asarray(lat.values, dtype=np.float64)
@@ -107,6 +115,48 @@ class GridGeometry:
                 "attach cannot read the grid's horizontal layout: expected 1-D lat/lon, 2-D lat/lon "
                 "coordinates, or 1-D x/y with attrs['crs_wkt']."
             )
+
+    def _lon_frame(self) -> None:
+        """Columns in the unwrapped frame and their west / east edges (see the module)."""
+        c = self.lon
+        n = c.size
+        perm = np.arange(n)
+        u = c.copy()
+        d = np.diff(c)
+        step = float(np.median(d)) if n > 1 else 1.0
+        gaps = np.zeros(max(n - 1, 0), dtype=bool)
+        if not self.is_global and n >= 3 and c[0] + 360.0 - c[-1] <= 1.5 * step and np.any(d > 1.5 * step):
+            # a regional grid whose centres run on across ±180°: the frame starts after
+            # the widest jump, the columns west of it move 360° east
+            k = int(np.argmax(d))
+            perm = np.concatenate([np.arange(k + 1, n), np.arange(k + 1)])
+            u = np.concatenate([c[k + 1 :], c[: k + 1] + 360.0])
+            gaps = np.diff(u) > 1.5 * step
+        edges = cell_edges(u)
+        west, east = edges[:-1].copy(), edges[1:].copy()
+        ud = np.diff(u)
+        for j in np.nonzero(gaps)[0]:  # the cells on each side of a gap keep their local step
+            east[j] = u[j] + 0.5 * (ud[j - 1] if j > 0 else step)
+            west[j + 1] = u[j + 1] - 0.5 * (ud[j + 1] if j + 1 < ud.size else step)
+        self._perm, self._ulon, self._uwest, self._ueast, self._ugap = perm, u, west, east, gaps
+        back = np.empty(n, dtype=np.int64)
+        back[perm] = np.arange(n)
+        w_phys, e_phys = west[back], east[back]
+        shift = np.where(u[back] > c + 180.0, 360.0, 0.0)
+        #: per-column west / east edges, degrees, in the grid's own longitudes
+        self.lon_west, self.lon_east = w_phys - shift, e_phys - shift
+        #: (n + 1) edges: the west edges then the last east edge (shared edges when the
+        #: columns are contiguous; use ``lon_west`` / ``lon_east`` across a gap)
+        self.lon_edges = np.concatenate([self.lon_west, self.lon_east[-1:]])
+
+    def _frame_pos(self, lon: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Longitudes moved into the frame and the frame column holding each (-1 outside)."""
+        w0 = self._uwest[0]
+        fin = np.isfinite(lon)
+        x = w0 + np.mod(np.where(fin, lon, 0.0) - w0, 360.0)
+        p = np.clip(np.searchsorted(self._uwest, x, side="right") - 1, 0, self._ulon.size - 1)
+        inside = fin & (True if self.is_global else x <= self._ueast[p])
+        return np.where(fin, x, np.nan), np.where(inside, p, -1)
 
     # -- cell centres -------------------------------------------------------------------
     @property
@@ -149,7 +199,7 @@ class GridGeometry:
         if self.kind != "regular":
             return np.ones(flat.shape, dtype=np.float64)
         iy, ix = np.divmod(flat, self.shape[1])
-        return cell_area_km2(self.lat_edges[iy], self.lat_edges[iy + 1], np.diff(self.lon_edges)[ix])
+        return cell_area_km2(self.lat_edges[iy], self.lat_edges[iy + 1], (self.lon_east - self.lon_west)[ix])
 
     # -- rules --------------------------------------------------------------------------
     def nearest(self, lat: np.ndarray, lon: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -159,11 +209,8 @@ class GridGeometry:
         ny, nx = self.shape
         if self.kind == "regular":
             iy = _locate_1d(self.lat_edges, lat)
-            e0 = self.lon_edges[0]
-            lon_w = e0 + np.mod(lon - e0, 360.0)  # into [e0, e0 + 360)
-            ix = _locate_1d(self.lon_edges, lon_w)
-            if self.is_global:
-                ix = np.where((ix < 0) & np.isfinite(lon), np.where(lon_w >= self.lon_edges[-1], nx - 1, 0), ix)
+            _, p = self._frame_pos(lon)
+            ix = np.where(p >= 0, self._perm[np.maximum(p, 0)], -1)
             flat = np.where((iy >= 0) & (ix >= 0), iy * nx + ix, -1)
         elif self.kind == "projected":
             x, y = self._fwd.transform(lon, lat)
@@ -210,12 +257,16 @@ class GridGeometry:
         return np.asarray(ptr, dtype=np.int64), _cat(cells, np.int64), _cat(dists, np.float64)
 
     def _box(self, lat: float, lon: float, km: float) -> np.ndarray:
-        dlat = km / _KM_PER_DEG
-        iy = np.nonzero((self.lat >= lat - dlat) & (self.lat <= lat + dlat))[0]
-        coslat = np.cos(np.radians(min(abs(lat) + dlat, 90.0)))
-        dlon = 360.0 if coslat < 1e-6 else min(km / (_KM_PER_DEG * coslat), 360.0)
+        """Cells that can lie within ``km`` of the site: a latitude band and, per the
+        exact spherical bound, the longitudes within asin(sin δ / cos φ) (wrapped)."""
+        dlat = np.degrees(km / EARTH_RADIUS_KM)
+        iy = np.nonzero(np.abs(self.lat - lat) <= dlat * (1 + 1e-9) + 1e-12)[0]
+        if abs(lat) + dlat >= 90.0 - 1e-9:
+            dlon = 180.0
+        else:
+            dlon = float(np.degrees(np.arcsin(min(np.sin(km / EARTH_RADIUS_KM) / np.cos(np.radians(lat)), 1.0))))
         off = np.mod(self.lon - lon + 180.0, 360.0) - 180.0
-        ix = np.nonzero(np.abs(off) <= dlon)[0] if self.is_global else np.nonzero(np.abs(self.lon - lon) <= dlon)[0]
+        ix = np.nonzero(np.abs(off) <= dlon * (1 + 1e-9) + 1e-12)[0]
         return (iy[:, None] * self.shape[1] + ix[None, :]).ravel()
 
 
@@ -244,17 +295,24 @@ def bilinear_cells(geom: GridGeometry, lat: np.ndarray, lon: np.ndarray) -> tupl
     j1 = np.minimum(j + 1, ny - 1)
     ty = np.where(j1 > j, (lat - la[j]) / np.where(j1 > j, la[j1] - la[j], 1.0), 0.0)
     ty = np.clip(ty, 0.0, 1.0)
-    lo = geom.lon
+    lo = geom._ulon
+    lon_w, pos = geom._frame_pos(lon)
     if geom.is_global:
         ext = np.concatenate([lo, [lo[0] + 360.0]])
-        lon_w = lo[0] + np.mod(lon - lo[0], 360.0)
+        lon_w = lo[0] + np.mod(np.where(np.isfinite(lon), lon, 0.0) - lo[0], 360.0)
         i = np.clip(np.searchsorted(ext, lon_w, side="right") - 1, 0, nx - 1)
         i1 = (i + 1) % nx
         tx = (lon_w - ext[i]) / (ext[i + 1] - ext[i])
     else:
-        i = np.clip(np.searchsorted(lo, lon, side="right") - 1, 0, max(nx - 2, 0))
+        # in the frame: contiguous across ±180° on a regional grid that crosses it
+        i = np.clip(np.searchsorted(lo, lon_w, side="right") - 1, 0, max(nx - 2, 0))
         i1 = np.minimum(i + 1, nx - 1)
-        tx = np.where(i1 > i, (lon - lo[i]) / np.where(i1 > i, lo[i1] - lo[i], 1.0), 0.0)
+        tx = np.where(i1 > i, (lon_w - lo[i]) / np.where(i1 > i, lo[i1] - lo[i], 1.0), 0.0)
+        if geom._ugap.any():  # never across a gap: the weights collapse onto the cell holding the site
+            across = (i1 > i) & geom._ugap[np.minimum(i, max(nx - 2, 0))]
+            own = np.maximum(pos, 0)
+            i, i1, tx = np.where(across, own, i), np.where(across, own, i1), np.where(across, 0.0, tx)
+    i, i1 = geom._perm[i], geom._perm[i1]
     tx = np.clip(tx, 0.0, 1.0)
     cells = np.stack([j * nx + i, j * nx + i1, j1 * nx + i, j1 * nx + i1], axis=1)
     w = np.stack([(1 - ty) * (1 - tx), (1 - ty) * tx, ty * (1 - tx), ty * tx], axis=1)
@@ -286,9 +344,11 @@ def polygon_cells(geom: GridGeometry, wkt: str) -> tuple[np.ndarray, np.ndarray,
         raise InputError(f"Cannot read the site polygon {wkt[:60]!r}: {exc}") from exc
     if geom.kind == "projected":
         return _projected_polygon_cells(geom, poly)
-    iy, ix, area, frac = polygon_cell_overlaps(poly, geom.lat_edges, geom.lon_edges, wrap=geom.is_global)
-    flat = iy * geom.shape[1] + ix
-    small = bool(area.size and area.sum() < geom.cell_areas(flat).max())
+    bounds = np.column_stack([geom._uwest, geom._ueast])  # the frame: contiguous across ±180°
+    iy, pos, area, frac = polygon_cell_overlaps(poly, geom.lat_edges, bounds, wrap=True)
+    flat = iy * geom.shape[1] + geom._perm[pos]
+    step = float(min(np.min(np.diff(geom.lat_edges)), np.min(bounds[:, 1] - bounds[:, 0]))) / 4.0
+    small = bool(area.size and polygon_area_km2(poly, step) < geom.cell_areas(flat).max())
     return flat.astype(np.int64), area, small
 
 

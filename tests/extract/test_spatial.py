@@ -260,3 +260,116 @@ def test_polygon_wholly_in_the_longitude_gap_is_outside_grid():
     out = attach(t, g, name="v", spatial="polygon")
     assert out["v_flags"].tolist() == ["outside_grid", "", "outside_grid"]
     assert np.isnan(out["v"][[0, 2]]).all() and out["v"][1] == 1.0
+
+
+# -- a regional grid across the antimeridian: 170°E … 169°W, values row*100 + col ----
+SEAM_LON = np.concatenate([np.arange(-179.5, -169.0, 1.0), np.arange(170.5, 180.0, 1.0)])
+SEAM_LAT = np.arange(-4.5, 5.0, 1.0)
+SEAM_V = (np.arange(SEAM_LAT.size)[:, None] * 100.0 + np.arange(SEAM_LON.size)[None, :])
+
+
+def _seam_grid(values: np.ndarray = SEAM_V):
+    return make_grid(np.repeat(values[None], 2, 0), lat=SEAM_LAT, lon=SEAM_LON, start="2000-01-01", freq="MS")
+
+
+def test_seam_grid_cell_edges_keep_the_gap():
+    # cells next to the gap end half the local step (0.5°) past their centre; the
+    # columns at ±179.5° meet at ±180°; every cell is a 1°×1° cell (closed form area)
+    from envlink.extract.spatial import GridGeometry
+
+    g = GridGeometry(_seam_grid())
+    assert_allclose(g.lon_east - g.lon_west, np.ones(SEAM_LON.size), rtol=0, atol=1e-12)
+    assert_allclose(g.lon_west, SEAM_LON - 0.5, rtol=0, atol=1e-12)
+    areas = g.cell_areas(np.arange(SEAM_LON.size) + 4 * SEAM_LON.size)  # row 4: -0.5°
+    assert_allclose(areas, cell_area_km2(-1.0, 0.0, 1.0), rtol=1e-12)
+    near, _ = g.nearest(np.array([0.2, 0.2, 0.2, 0.2]), np.array([-169.1, -168.9, 169.9, 170.1]))
+    assert near.tolist()[0] == 5 * 21 + 10 and near.tolist()[1:3] == [-1, -1] and near[3] == 5 * 21 + 11
+
+
+def test_seam_grid_bilinear_interpolates_across_180():
+    # reference: scipy RegularGridInterpolator on the grid moved to 0..360 longitudes
+    from scipy.interpolate import RegularGridInterpolator
+
+    g = _seam_grid()
+    lon360 = np.mod(SEAM_LON, 360.0)
+    o = np.argsort(lon360)
+    interp = RegularGridInterpolator((SEAM_LAT, lon360[o]), SEAM_V[:, o])
+    slat, slon = np.array([0.2, 0.2, -3.7, 2.9]), np.array([179.9, -179.9, 179.1, -178.2])
+    out = attach(table(slat, slon, "2000-01-01", "2000-01-31"), g, name="v", spatial="bilinear")
+    ref = interp(np.column_stack([slat, np.mod(slon, 360.0)]))
+    assert_allclose(out["v"], ref, rtol=1e-12)
+    # by hand: 100·4.7 + 0.6·20 + 0.4·0 (columns 179.5° = col 20 and -179.5° = col 0)
+    assert_allclose(out["v"][:2], [482.0, 478.0], rtol=1e-12)
+    # a site between the last centre of a run and the gap (-169.2°) stays on its column
+    side = attach(table([0.5], [-169.2], "2000-01-01", "2000-01-31"), g, name="v", spatial="bilinear")
+    assert_allclose(side["v"][0], SEAM_V[5, 10], rtol=1e-12)
+
+
+def test_seam_grid_buffer_and_nearest_valid_reach_across_180():
+    g = _seam_grid()
+    t = table([0.2], [179.9], "2000-01-01", "2000-01-31")
+    out = attach(t, g, name="v", spatial="buffer:120km")
+    # brute force: every centre within 120 km by great-circle distance, spherical areas
+    la, lo = np.meshgrid(SEAM_LAT, SEAM_LON, indexing="ij")
+    m = great_circle_km(0.2, 179.9, la, lo) <= 120.0
+    a = cell_area_km2(la - 0.5, la + 0.5, np.ones_like(la))
+    assert_allclose(out["v"][0], (a[m] * SEAM_V[m]).sum() / a[m].sum(), rtol=1e-12)
+    assert_allclose(out["v"][0], (400 + 420 + 500 + 520) / 4.0, rtol=1e-12)  # by hand: rows 4-5, ±179.5°
+    # nearest-valid: the site's own column (179.5°) is masked; the nearest cell with
+    # data is across ±180° at (0.5, -179.5), 44.5 km away
+    v = SEAM_V.copy()
+    v[:, 20] = np.nan
+    nv = attach(table([0.4], [179.9], "2000-01-01", "2000-01-31"), _seam_grid(v), name="v",
+                spatial="nearest-valid:100km")
+    assert_allclose(nv["v"][0], SEAM_V[5, 0], rtol=1e-12)
+    assert_allclose(nv["v_distance_km"][0], great_circle_km(0.4, 179.9, 0.5, -179.5), rtol=1e-12)
+    assert nv["v_flags"][0] == f"nearest_valid_{round(float(great_circle_km(0.4, 179.9, 0.5, -179.5)))}km"
+
+
+def test_seam_grid_polygon_across_180_and_partly_in_the_gap():
+    g = _seam_grid()
+    across = Polygon([(178.2, 0.1), (-178.8, 0.1), (-178.8, 0.9), (178.2, 0.9)])
+    part = Polygon([(-169.9, 0.0), (-160.0, 0.0), (-160.0, 1.0), (-169.9, 1.0)])
+    t = table([0.5, 0.5], [179.0, -169.0], "2000-01-01", "2000-01-31", site_wkt=[across.wkt, part.wkt])
+    out = attach(t, g, name="v", spatial="polygon")
+    # reference: shapely areas on a pyproj Lambert cylindrical equal-area projection
+    # of the polygon moved to 0..360 longitudes, against the 1° cells of row 5 (lat 0..1)
+    cea = pyproj.Transformer.from_crs("EPSG:4326", "+proj=cea +lon_0=180 +R=6371008.8", always_xy=True)
+    p360 = shapely.segmentize(Polygon([(178.2, 0.1), (181.2, 0.1), (181.2, 0.9), (178.2, 0.9)]), 0.01)
+    to = lambda geom: shapely.transform(geom, lambda xy: np.column_stack(cea.transform(xy[:, 0], xy[:, 1])))  # noqa: E731
+    num = den = 0.0
+    for col, c in enumerate(SEAM_LON):
+        c360 = c % 360.0
+        area = to(p360).intersection(to(shapely.box(c360 - 0.5, 0.0, c360 + 0.5, 1.0))).area
+        num += area * SEAM_V[5, col]
+        den += area
+    assert_allclose(out["v"][0], num / den, rtol=1e-6)
+    assert_allclose(out["v"][0], (0.8 * 519 + 520 + 500 + 0.2 * 501) / 3.0, rtol=1e-6)  # by hand
+    # partly in the gap: only the -169.5° column, and the polygon (9.9 cells) is not
+    # smaller than that cell
+    assert out["v_flags"].tolist() == ["", ""]
+    assert_allclose(out["v"][1], SEAM_V[5, 10], rtol=1e-12)
+
+
+def test_seam_grid_from_a_file_in_0_360_bilinear(tmp_path):
+    # the file stores 170.5 … 189.5°E, values row*100 + col; open_grid moves it to
+    # [-180, 180) as two runs; bilinear across 180° by hand: 100·4.7 + 9.4 and + 9.6
+    import pandas as pd
+    import xarray as xr
+
+    import envlink
+
+    lon = np.arange(170.5, 190.0, 1.0)
+    v = np.arange(10)[:, None] * 100.0 + np.arange(20)[None, :]
+    ds = xr.Dataset(
+        {"sst": (("time", "lat", "lon"), np.repeat(v[None], 2, 0), {"units": "degC"})},
+        coords={"time": pd.date_range("2000-01-01", periods=2, freq="MS"),
+                "lat": ("lat", SEAM_LAT, {"units": "degrees_north"}),
+                "lon": ("lon", lon, {"units": "degrees_east"})},
+    )
+    ds.to_netcdf(tmp_path / "seam.nc")
+    g = envlink.open_grid(tmp_path / "seam.nc")
+    t = table([0.2, 0.2, 0.0], [179.9, -179.9, 0.0], "2000-01-01", "2000-01-31")
+    out = attach(t, g, name="v", spatial="bilinear")
+    assert_allclose(out["v"][:2], [479.4, 479.6], rtol=1e-12)
+    assert out["v_flags"].tolist() == ["", "", "outside_grid"]
