@@ -4,7 +4,9 @@ A result (value, flags, cell, distance and coverage of every row) is stored as o
 ``.npz`` file named by a SHA-256 key over: the grid's identity
 (``attrs["envlink_identity"]``), its shape and coordinates, a hash of its values when
 the grid is held in memory, every option of the request, the rows' site and period
-columns, and the envlink version. Files are written atomically, so a crash leaves no
+columns, the envlink version and a SHA-256 over the source of the extraction code
+itself (``envlink/extract/*.py`` and ``envlink/geo.py``), so results cached by older
+code are not served after it changes. Files are written atomically, so a crash leaves no
 partial entry. Grids without an identity are hashed by value when in memory; lazy
 grids without an identity are not cached.
 
@@ -31,7 +33,7 @@ import xarray as xr
 from envlink._util import atomic_path
 from envlink.errors import EnvlinkWarning
 
-__all__ = ["CacheWarning", "request_key", "load", "save", "default_cache_dir"]
+__all__ = ["CacheWarning", "request_key", "load", "save", "default_cache_dir", "code_hash"]
 
 
 class CacheWarning(EnvlinkWarning):
@@ -44,6 +46,34 @@ def default_cache_dir() -> Path:
     """``$ENVLINK_CACHE`` or ``~/.cache/envlink`` (used by the command line)."""
     env = os.environ.get("ENVLINK_CACHE")
     return Path(env) if env else Path.home() / ".cache" / "envlink"
+
+
+_CODE_HASH: str | None = None
+
+
+def code_hash() -> str:
+    """SHA-256 hex over the source bytes of ``envlink/extract/*.py`` and ``envlink/geo.py``
+    (file names included, in sorted order); computed once per process.
+
+    Examples
+    --------
+    >>> len(code_hash()), code_hash() == code_hash()
+    (64, True)
+    """
+    global _CODE_HASH
+    if _CODE_HASH is None:
+        here = Path(__file__).resolve().parent
+        files = sorted(here.glob("*.py")) + [here.parent / "geo.py"]
+        h = hashlib.sha256()
+        for f in files:
+            h.update(f"{f.parent.name}/{f.name}\x00".encode())
+            try:
+                h.update(f.read_bytes())
+            except OSError:
+                h.update(b"<unreadable>")
+            h.update(b"\x00")
+        _CODE_HASH = h.hexdigest()
+    return _CODE_HASH
 
 
 def _grid_fingerprint(grid: xr.DataArray) -> str | None:
@@ -72,6 +102,7 @@ def request_key(grid: xr.DataArray, table: pd.DataFrame, options: Mapping[str, o
     h = hashlib.sha256(fp.encode())
     h.update(json.dumps(options, sort_keys=True, default=str).encode())
     h.update(__version__.encode())
+    h.update(code_hash().encode())
     for col in ("site_lat", "site_lon", "period_start", "period_end", "locate_status", "site_wkt"):
         if col in table.columns:
             h.update(col.encode())

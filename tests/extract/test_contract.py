@@ -220,3 +220,26 @@ def test_impossible_coordinates_are_site_rejected_without_numpy_warnings(grid):
     assert_allclose(out["v"].iloc[3], envlink.attach(table([0.5], [0.5], "2000-01-01", "2000-01-31"), grid, name="v")["v"][0], rtol=1e-12)
     empty = envlink.attach(t.iloc[:0], grid, name="v")
     assert len(empty) == 0 and "v_coverage" in empty.columns
+
+
+def test_cache_key_changes_with_the_extraction_code(grid, tmp_path, monkeypatch):
+    # results cached by other extraction code are not served: the key holds a hash
+    # of the code's source (SHA-256 over envlink/extract/*.py and envlink/geo.py)
+    import hashlib
+    from pathlib import Path
+
+    from envlink.extract import cache
+
+    src = Path(cache.__file__).resolve().parent
+    files = sorted(src.glob("*.py")) + [src.parent / "geo.py"]
+    h = hashlib.sha256()
+    for f in files:  # the same recipe, recomputed here from the files on disk
+        h.update(f"{f.parent.name}/{f.name}\x00".encode() + f.read_bytes() + b"\x00")
+    assert cache.code_hash() == h.hexdigest()
+    t = _rows()
+    key = cache.request_key(grid, t, {"stat": "mean"})
+    assert attach(t, grid, name="v", cache_dir=tmp_path).attrs["envlink"]["v"]["cache"] == "stored"
+    monkeypatch.setattr(cache, "_CODE_HASH", "0" * 64)
+    assert cache.request_key(grid, t, {"stat": "mean"}) != key
+    assert attach(t, grid, name="v", cache_dir=tmp_path).attrs["envlink"]["v"]["cache"] == "stored"
+    assert len(list(tmp_path.glob("*.npz"))) == 2
