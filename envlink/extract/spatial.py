@@ -89,7 +89,7 @@ class GridGeometry:
             self.lat = np.asarray(grid["lat"].values, dtype=np.float64)
             self.lon = np.asarray(grid["lon"].values, dtype=np.float64)
             self.lat_edges = cell_edges(self.lat)
-            step = float(np.median(np.diff(self.lon))) if self.lon.size > 1 else 360.0
+            step = float(np.median(np.diff(self.lon))) if self.lon.size > 1 else 1.0  # one column: 1° wide (cell_edges)
             self.is_global = bool(grid.attrs.get("envlink_global", self.lon.size * step >= 360.0 - 1e-6))
             self._lon_frame()
         elif lat is not None and lon is not None and lat.ndim == 2:

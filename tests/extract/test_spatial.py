@@ -373,3 +373,24 @@ def test_seam_grid_from_a_file_in_0_360_bilinear(tmp_path):
     out = attach(t, g, name="v", spatial="bilinear")
     assert_allclose(out["v"][:2], [479.4, 479.6], rtol=1e-12)
     assert out["v_flags"].tolist() == ["", "", "outside_grid"]
+
+
+def test_buffer_cells_match_brute_force_great_circle_at_high_latitude():
+    # every centre within R by great-circle distance (brute force over all cells),
+    # including sites near 80°N where the longitude reach is widest, on a seam grid
+    from envlink.extract.spatial import GridGeometry
+
+    lat = np.arange(60.25, 90.0, 0.5)
+    lon = np.concatenate([np.arange(-179.75, -150.0, 0.5), np.arange(150.25, 180.0, 0.5)])
+    geom = GridGeometry(make_grid(np.zeros((1, lat.size, lon.size)), lat=lat, lon=lon))
+    rng = np.random.default_rng(21)
+    slat = rng.uniform(61.0, 89.0, 40)
+    slon = np.mod(rng.uniform(160.0, 200.0, 40) + 180.0, 360.0) - 180.0
+    ptr, cells, dist = geom.within(slat, slon, 150.0)
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    for k in range(slat.size):
+        d = great_circle_km(slat[k], slon[k], la.ravel(), lo.ravel())
+        ref = np.nonzero(d <= 150.0)[0]
+        got = cells[ptr[k] : ptr[k + 1]]
+        assert sorted(got.tolist()) == ref.tolist(), k
+        assert_allclose(dist[ptr[k] : ptr[k + 1]], np.sort(d[ref]), rtol=1e-12)
