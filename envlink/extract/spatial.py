@@ -10,7 +10,7 @@ for sites, in float64:
 - :meth:`GridGeometry.within`: every cell centre within a distance, sorted by distance
   (``nearest-valid`` candidates and ``buffer``).
 - :func:`bilinear_cells`: the four neighbours and weights (regular grids; wraps
-  across the antimeridian on global grids).
+  across the antimeridian on global grids and on regional grids that cross it).
 - :func:`polygon_cells`: cells a polygon overlaps, weighted by the spherical area
   inside the polygon.
 
@@ -274,7 +274,8 @@ def bilinear_cells(geom: GridGeometry, lat: np.ndarray, lon: np.ndarray) -> tupl
     """Four neighbour cells (n, 4) and bilinear weights (n, 4) on a regular grid.
 
     Sites between the outermost centre and the grid edge use the edge row / column
-    (weights collapse onto it); global grids wrap in longitude. Sites outside get -1.
+    (weights collapse onto it, also beside a longitude gap); global grids, and regional
+    grids whose cells run on across ±180°, wrap in longitude. Sites outside get -1.
 
     Examples
     --------
