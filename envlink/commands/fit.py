@@ -33,6 +33,7 @@ examples:
   envlink fit enriched.parquet --effect yi --variance vi --nested study --cluster study \\
       --test knapp-hartung --json fit.json
   envlink fit enriched.csv --effect yi --variance vi --moderators dhw_max --permutations 999 --seed 1
+  envlink fit enriched.csv --effect yi --variance vi --diagnostics --influence influence.csv
 
 Exit codes: 0 fitted (read the notes for warnings), 2 bad input (missing column,
 bad formula or option), 1 the model cannot be fitted. Methods: docs/methods.md."""
@@ -70,6 +71,12 @@ def register(subparsers: Any) -> None:
                    help="also run a permutation test of the moderators with N permutations")
     p.add_argument("--seed", metavar="S", type=int, default=None,
                    help="random seed of the permutation test (for reproducible p-values)")
+    p.add_argument("--diagnostics", action="store_true",
+                   help="also run the small-study diagnostics on the fitted effects: Egger's test, "
+                        "trim-and-fill (L0) and the fail-safe N")
+    p.add_argument("--influence", metavar="CSV", default=None,
+                   help="write per-row influence to CSV: standardised residuals, Cook's distances "
+                        "and leave-one-out estimates (one row per input row)")
     p.add_argument("--json", metavar="OUT", default=None,
                    help="write the result as JSON to OUT (a .json file; replaced if it exists)")
     p.set_defaults(handler=run)
@@ -103,6 +110,77 @@ def _model_table(df: pd.DataFrame, args: argparse.Namespace, variables: list[str
     return data
 
 
+def _used_effects(model: Any, data: pd.DataFrame, args: argparse.Namespace) -> tuple[np.ndarray, np.ndarray]:
+    """Effects and variances of the rows the model used (dropped rows left out)."""
+    import numpy as np
+
+    used = ~model.standardized_residuals()["dropped"].to_numpy(dtype=bool)
+    y = data[args.effect].to_numpy(dtype=np.float64)[used]
+    v = data[args.variance].to_numpy(dtype=np.float64)[used]
+    return y, v
+
+
+def _diagnostics(model: Any, data: pd.DataFrame, args: argparse.Namespace) -> dict[str, Any]:
+    """Egger's test, trim-and-fill and the fail-safe N on the fitted effects; printed and returned."""
+    from envlink.metareg.diagnostics import egger_test, fail_safe_n, trim_and_fill
+
+    y, v = _used_effects(model, data, args)
+    out: dict[str, Any] = {"k": int(y.size)}
+    print(f"\nSmall-study diagnostics on the k = {y.size} fitted effects (no moderators):")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            eg = egger_test(y, v)
+            out["egger"] = eg.to_dict()
+            print(f"  Egger's test: intercept {eg.intercept:.4f} (se {eg.intercept_se:.4f}), "
+                  f"t = {eg.statistic:.3f} on {eg.df} df, p = {eg.p_value:.4g}")
+        except EnvlinkError as exc:
+            out["egger"] = None
+            print(f"  Egger's test: not run ({exc})")
+        try:
+            tf = trim_and_fill(y, v)
+            summary = {k: val for k, val in tf.to_dict().items() if k not in ("y", "v", "filled")}
+            out["trim_and_fill"] = summary
+            print(f"  Trim-and-fill ({tf.estimator}, {tf.tau2_method}): k0 = {tf.k0} filled on the "
+                  f"{tf.side}; pooled {tf.estimate:.4f} [{tf.ci_low:.4f}, {tf.ci_high:.4f}] "
+                  f"(unadjusted {tf.estimate_unadjusted:.4f})")
+        except EnvlinkError as exc:
+            out["trim_and_fill"] = None
+            print(f"  Trim-and-fill: not run ({exc})")
+        try:
+            n = fail_safe_n(y, v)
+            out["fail_safe_n"] = int(n)
+            print(f"  Fail-safe N (Rosenthal 1979, alpha 0.05): {int(n)}")
+        except EnvlinkError as exc:
+            out["fail_safe_n"] = None
+            print(f"  Fail-safe N: not run ({exc})")
+    return out
+
+
+def _write_influence(model: Any, path: Any) -> None:
+    """Standardised residuals, Cook's distances and leave-one-out fits, one row per input row."""
+    import numpy as np
+    import pandas as pd
+
+    from envlink.tables import write_table
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # failed refits are reported in the model's notes
+        resid = model.standardized_residuals()
+        table = pd.DataFrame({
+            "row": np.arange(1, len(resid) + 1),
+            "dropped": resid["dropped"].to_numpy(dtype=bool),
+            "residual": resid["residual"].to_numpy(),
+            "standardized_residual": resid["z"].to_numpy(),
+            "cooks_distance": model.cooks_distance().to_numpy(),
+        })
+        loo = model.leave_one_out().drop(columns="dropped", errors="ignore")
+    for col in loo.columns:
+        table[f"loo_{col}"] = loo[col].to_numpy()
+    write_table(table, path, force=True)
+    print(f"envlink fit: influence of {int((~table['dropped']).sum())} rows -> {path}", file=sys.stderr)
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink fit``; returns the exit code."""
     from envlink._util import atomic_path
@@ -117,6 +195,8 @@ def run(args: argparse.Namespace) -> int:
     # the JSON result replaces an existing file, but a path that cannot be written is
     # found before the table is read and the model fitted
     out = check_output_path(args.json, force=True, suffixes=(".json",)) if args.json else None
+    influence_out = (check_output_path(args.influence, force=True, suffixes=(".csv",))
+                     if args.influence else None)
     variables = formula_variables(args.moderators)
     df = read_table_as_written(args.table)
     require_columns(df, [args.effect, args.variance, args.nested, args.cluster])
@@ -140,6 +220,10 @@ def run(args: argparse.Namespace) -> int:
         for c in perm["coefficients"]:
             print(f"  {c['term']}: p = {c['p']:.4f}")
         result["permutation"] = perm
+    if args.diagnostics:
+        result["diagnostics"] = _diagnostics(model, data, args)
+    if influence_out is not None:
+        _write_influence(model, influence_out)
     for note in result["warnings"]:
         print(f"envlink fit: note: {note}", file=sys.stderr)
     if out is not None:

@@ -172,3 +172,40 @@ def test_fit_formula_errors_are_plain_text(bcg_csv, capsys):
     assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi",
                  "--moderators", "yi ~ ablat"]) == 2
     assert "right-hand side only" in capsys.readouterr().err
+
+
+def test_fit_diagnostics_and_influence(bcg_csv, tmp_path, capsys):
+    # The wiring of the diagnostics into `envlink fit`: the numbers must equal the
+    # functions' own (each checked against its reference in test_diagnostics.py and
+    # test_influence.py) on the rows the model used.
+    from envlink.metareg.diagnostics import egger_test, fail_safe_n, trim_and_fill
+
+    out, infl = tmp_path / "fit.json", tmp_path / "influence.csv"
+    rc = main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--moderators", "ablat",
+               "--diagnostics", "--influence", str(infl), "--json", str(out)])
+    assert rc == 0
+    text = capsys.readouterr().out
+    assert "Egger's test" in text and "Trim-and-fill" in text and "Fail-safe N" in text
+    got = json.loads(out.read_text())["diagnostics"]
+    t = table()
+    y, v = t["yi"].to_numpy(), t["vi"].to_numpy()
+    assert got["k"] == 13
+    np.testing.assert_allclose(got["egger"]["intercept"], egger_test(y, v).intercept, rtol=1e-12)
+    assert got["trim_and_fill"]["k0"] == trim_and_fill(y, v).k0
+    assert got["fail_safe_n"] == fail_safe_n(y, v)
+    ref = MetaRegression(moderators="ablat").fit(t, effect="yi", variance="vi")
+    rows = pd.read_csv(infl)
+    assert len(rows) == 13 and rows["row"].tolist() == list(range(1, 14))
+    np.testing.assert_allclose(rows["cooks_distance"], ref.cooks_distance(), rtol=1e-10)
+    np.testing.assert_allclose(rows["standardized_residual"], ref.standardized_residuals()["z"],
+                               rtol=1e-10)
+    np.testing.assert_allclose(rows["loo_ablat"], ref.leave_one_out()["ablat"], rtol=1e-10)
+
+
+def test_fit_influence_path_checked_first(bcg_csv, tmp_path, capsys):
+    rc = main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi",
+               "--influence", str(tmp_path)])
+    assert rc == 2
+    err = capsys.readouterr()
+    assert "it is a folder" in err.err and str(tmp_path) in err.err
+    assert err.out == ""  # refused before any fitting
