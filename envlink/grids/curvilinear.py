@@ -12,20 +12,11 @@ from collections.abc import Sequence
 
 import numpy as np
 import xarray as xr
-from scipy.spatial import cKDTree
 
 from envlink.errors import InputError
+from envlink.geo import EARTH_RADIUS_KM, build_kdtree, chord_to_km, unit_vectors
 
 __all__ = ["CurvilinearIndex", "EARTH_RADIUS_KM"]
-
-#: IUGG mean Earth radius R1 (Moritz 2000, Geodetic Reference System 1980), km.
-EARTH_RADIUS_KM = 6371.0088
-
-
-def _unit_vectors(lat: Sequence[float] | np.ndarray, lon: Sequence[float] | np.ndarray) -> np.ndarray:
-    phi = np.radians(np.asarray(lat, dtype=np.float64))
-    lam = np.radians(np.asarray(lon, dtype=np.float64))
-    return np.column_stack([np.cos(phi) * np.cos(lam), np.cos(phi) * np.sin(lam), np.sin(phi)])
 
 
 class CurvilinearIndex:
@@ -57,14 +48,13 @@ class CurvilinearIndex:
         self.shape = lat.shape
         ok = np.isfinite(lat) & np.isfinite(lon)
         self._flat = np.flatnonzero(ok.ravel())
-        self._tree = cKDTree(_unit_vectors(lat.ravel()[self._flat], lon.ravel()[self._flat]))
+        self._tree = build_kdtree(lat.ravel()[self._flat], lon.ravel()[self._flat])
 
     def query(
         self, lat: Sequence[float] | np.ndarray, lon: Sequence[float] | np.ndarray
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Nearest cell of each site: row index, column index and great-circle distance (km)."""
-        chord, idx = self._tree.query(_unit_vectors(lat, lon))
+        chord, idx = self._tree.query(unit_vectors(np.ravel(lat), np.ravel(lon)))
         flat = self._flat[np.asarray(idx)]
         iy, ix = np.unravel_index(flat, self.shape)
-        km = 2.0 * EARTH_RADIUS_KM * np.arcsin(np.clip(np.asarray(chord) / 2.0, 0.0, 1.0))
-        return np.asarray(iy), np.asarray(ix), km
+        return np.asarray(iy), np.asarray(ix), chord_to_km(chord)
