@@ -5,6 +5,7 @@ Private to :mod:`envlink.project`, which re-exports both.
 
 from __future__ import annotations
 
+import hashlib
 import os
 import tomllib
 from dataclasses import dataclass
@@ -84,8 +85,6 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     ...
     envlink.errors.InputError: ...p.toml, line 4: the key 'model.method' must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; got 'REMl'.
     """
-    from envlink.export import file_sha256
-
     p = Path(path)
     if p.is_dir():
         found = sorted(q.name for q in p.glob("*.toml"))[:5]
@@ -117,7 +116,7 @@ def load_project(path: str | os.PathLike[str]) -> Project:
         return q if q.is_absolute() else root / q
 
     return Project(
-        source=p, text=text, sha256=file_sha256(p), data=data, root=root,
+        source=p, text=text, sha256=hashlib.sha256(raw).hexdigest(), data=data, root=root,
         title=proj.get("title", "envlink report"), out=resolve(proj.get("out", "envlink-out")),
         cache_dir=resolve(proj["cache_dir"]) if "cache_dir" in proj else None,
         studies=resolve(data["studies"]["path"]),
