@@ -129,11 +129,13 @@ def attach_covariates(
 ) -> tuple[pd.DataFrame, dict[str, Any], dict[str, Any]]:
     """The [[covariates]] steps: the table with every covariate, the open grids, provenance.
 
-    Each grid is opened once; ``steps`` is told when each covariate is done.
+    Each grid (and each mmm climatology file) is opened once; ``steps`` is told when
+    each covariate is done.
     """
     import envlink
 
     grids: dict[str, Any] = {}
+    climatologies: dict[Path, Any] = {}
     provenance: dict[str, Any] = {}
     for i, cov in enumerate(project.covariates):
         gname = cov["grid"]
@@ -151,7 +153,10 @@ def attach_covariates(
         recorded = dict(options)
         try:
             if isinstance(options.get("mmm"), str):  # a climatology grid file
-                options["mmm"] = envlink.open_grid(_resolve(project, options["mmm"]))
+                mmm_path = _resolve(project, options["mmm"])
+                if mmm_path not in climatologies:
+                    climatologies[mmm_path] = envlink.open_grid(mmm_path)
+                options["mmm"] = climatologies[mmm_path]
             table = envlink.attach(table, grids[gname], name=cov["name"],
                                    cache_dir=str(cache), progress=progress, **options)
         except InputError as exc:
