@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from envlink._projectschema import validate
+from envlink._projectschema import resolve_path, validate
 from envlink.errors import InputError
 
 __all__ = ["Project", "load_project"]
@@ -111,14 +111,10 @@ def load_project(path: str | os.PathLike[str]) -> Project:
     proj = data.get("project", {})
     loc = data.get("locate", {})
 
-    def resolve(value: str) -> Path:
-        q = Path(os.path.expanduser(value))
-        return q if q.is_absolute() else root / q
-
     return Project(
         source=p, text=text, sha256=hashlib.sha256(raw).hexdigest(), data=data, root=root,
-        title=proj.get("title", "envlink report"), out=resolve(proj.get("out", "envlink-out")),
-        cache_dir=resolve(proj["cache_dir"]) if "cache_dir" in proj else None,
-        studies=resolve(data["studies"]["path"]),
-        gazetteer=resolve(loc["gazetteer"]) if "gazetteer" in loc else None,
+        title=proj.get("title", "envlink report"), out=resolve_path(root, proj.get("out", "envlink-out")),
+        cache_dir=resolve_path(root, proj["cache_dir"]) if "cache_dir" in proj else None,
+        studies=resolve_path(root, data["studies"]["path"]),
+        gazetteer=resolve_path(root, loc["gazetteer"]) if "gazetteer" in loc else None,
     )  # fmt: skip

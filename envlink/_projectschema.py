@@ -21,7 +21,7 @@ from envlink._util import did_you_mean
 from envlink.errors import InputError
 
 __all__ = ["SECTIONS", "KeySpec", "key_lines", "validate", "where", "check_files", "check_columns",
-           "formula_columns", "STATS", "WINDOWS", "SPATIAL_RULES"]
+           "formula_columns", "resolve_path", "STATS", "WINDOWS", "SPATIAL_RULES"]
 
 EFFECT_KINDS = (
     "logit_proportion", "arcsine_proportion", "log_odds_ratio", "log_risk_ratio", "hedges_g",
@@ -303,6 +303,12 @@ def _dotted(key: tuple[Any, ...]) -> str:
     return out
 
 
+def resolve_path(root: Path, value: str) -> Path:
+    """A path the project file names: ``~`` expanded, a relative one taken from ``root``."""
+    path = Path(os.path.expanduser(value))
+    return path if path.is_absolute() else root / path
+
+
 def check_files(project: Any, outputs: Any = ()) -> None:
     """Every file the project names exists, and none is one of ``outputs`` (key and line named)."""
     files: list[tuple[tuple[Any, ...], Path]] = [(("studies", "path"), project.studies)]
@@ -311,13 +317,11 @@ def check_files(project: Any, outputs: Any = ()) -> None:
     used = {c["grid"] for c in project.covariates}
     for name, spec in project.section("grids").items():
         if name in used:
-            path = Path(os.path.expanduser(spec["path"]))
-            files.append((("grids", name, "path"), path if path.is_absolute() else project.root / path))
+            files.append((("grids", name, "path"), resolve_path(project.root, spec["path"])))
     for i, cov in enumerate(project.covariates):
         mmm = cov.get("mmm")
         if isinstance(mmm, str):
-            path = Path(os.path.expanduser(mmm))
-            files.append((("covariates", i, "mmm"), path if path.is_absolute() else project.root / path))
+            files.append((("covariates", i, "mmm"), resolve_path(project.root, mmm)))
     for key, path in files:
         if not path.exists():
             raise InputError(

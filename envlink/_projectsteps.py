@@ -17,7 +17,7 @@ from typing import Any
 import pandas as pd
 
 from envlink._projectload import Project
-from envlink._projectschema import check_columns, formula_columns, where
+from envlink._projectschema import check_columns, formula_columns, resolve_path, where
 from envlink.errors import GridError, InputError
 
 __all__ = [
@@ -142,7 +142,7 @@ def attach_covariates(
         if gname not in grids:
             spec = project.section("grids")[gname]
             try:
-                grids[gname] = envlink.open_grid(_resolve(project, spec["path"]),
+                grids[gname] = envlink.open_grid(resolve_path(project.root, spec["path"]),
                                                  variable=spec.get("variable"))  # fmt: skip
             except InputError as exc:
                 raise InputError(f"{where(project, 'grids', gname)} [grids.{gname}]: {exc}") from exc
@@ -153,7 +153,7 @@ def attach_covariates(
         recorded = dict(options)
         try:
             if isinstance(options.get("mmm"), str):  # a climatology grid file
-                mmm_path = _resolve(project, options["mmm"])
+                mmm_path = resolve_path(project.root, options["mmm"])
                 if mmm_path not in climatologies:
                     climatologies[mmm_path] = envlink.open_grid(mmm_path)
                 options["mmm"] = climatologies[mmm_path]
@@ -210,7 +210,3 @@ def render_html(project: Project, table: pd.DataFrame, fit: Any, grids: Mapping[
         **options,
     )  # fmt: skip
 
-
-def _resolve(project: Project, value: str) -> Path:
-    path = Path(os.path.expanduser(value))
-    return path if path.is_absolute() else project.root / path
