@@ -62,35 +62,22 @@ def _arrays(y: ArrayLike, v: ArrayLike, caller: str, min_k: int) -> tuple[NDArra
 def _pool(y: NDArray[np.float64], v: NDArray[np.float64], method: str) -> tuple[float, float, float]:
     """Random-effects pooled mean of an intercept-only model: ``(mu, se, tau2)``.
 
-    ``DL``: DerSimonian & Laird (1986) moment estimator. ``REML``: Fisher scoring on
-    the restricted log-likelihood, started from DL, tau² kept >= 0.
+    tau² from :func:`envlink.metareg.estimators.estimate_tau2` (``DL``: DerSimonian &
+    Laird 1986; ``REML``: Fisher scoring from DL, tau² kept >= 0).
     """
-    w = 1.0 / v
-    sw = w.sum()
-    mu_fixed = (w @ y) / sw
-    q = w @ (y - mu_fixed) ** 2
-    c = sw - (w @ w) / sw
-    tau2 = max(0.0, (q - (y.size - 1)) / c) if c > 0 else 0.0
-    if method == "REML":
-        for _ in range(200):
-            w = 1.0 / (v + tau2)
-            sw = w.sum()
-            mu = (w @ y) / sw
-            w2 = w @ w
-            score = 0.5 * ((w**2) @ (y - mu) ** 2 - sw + w2 / sw)
-            info = 0.5 * (w2 - 2 * (w**3).sum() / sw + (w2 / sw) ** 2)
-            new = max(0.0, tau2 + score / info) if info > 0 else tau2
-            if abs(new - tau2) <= 1e-12 * max(1.0, tau2):
-                tau2 = new
-                break
-            tau2 = new
-        else:
-            warnings.warn(
-                f"REML pooling did not converge in 200 Fisher-scoring steps (tau² = {tau2:.6g}); "
-                "try tau2_method='DL'.",
-                DiagnosticWarning,
-                stacklevel=3,
-            )
+    from envlink.metareg.design import design_from_arrays
+    from envlink.metareg.estimators import estimate_tau2
+
+    fit = estimate_tau2(design_from_arrays(y, v, None, intercept=True), method,
+                        tol=1e-12, max_iter=200, use_numba=False)  # fmt: skip
+    tau2 = fit.tau2
+    if not fit.converged:
+        warnings.warn(
+            f"REML pooling did not converge in 200 Fisher-scoring steps (tau² = {tau2:.6g}); "
+            "try tau2_method='DL'.",
+            DiagnosticWarning,
+            stacklevel=3,
+        )
     w = 1.0 / (v + tau2)
     sw = w.sum()
     return float((w @ y) / sw), float(math.sqrt(1.0 / sw)), float(tau2)
