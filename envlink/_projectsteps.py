@@ -6,9 +6,7 @@ in order. Every error a step raises names the project key (and its line) it came
 
 from __future__ import annotations
 
-import os
 import sys
-import tempfile
 import time
 from collections.abc import Mapping
 from pathlib import Path
@@ -18,6 +16,7 @@ import pandas as pd
 
 from envlink._projectload import Project
 from envlink._projectschema import check_columns, formula_columns, resolve_path, where
+from envlink._util import probe_writable
 from envlink.errors import GridError, InputError
 
 __all__ = [
@@ -81,9 +80,7 @@ def check_writable(folder: Path, where_: str, what: str, advice: str) -> None:
     except OSError as exc:
         raise InputError(f"{where_}Cannot create {what}: {exc.strerror or exc}. {advice}") from exc
     try:
-        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=folder)
-        os.close(fd)
-        os.unlink(probe)
+        probe_writable(folder)
     except OSError as exc:
         raise InputError(f"{where_}Cannot write in {what}: {exc.strerror or exc}. {advice}") from exc
 

@@ -9,7 +9,7 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-__all__ = ["did_you_mean", "atomic_path", "INVISIBLE_CHARS"]
+__all__ = ["did_you_mean", "atomic_path", "probe_writable", "INVISIBLE_CHARS"]
 
 
 def did_you_mean(name: str, choices: Iterable[str]) -> str:
@@ -56,6 +56,21 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def probe_writable(folder: str | os.PathLike[str]) -> None:
+    """Create and remove a scratch file in ``folder``; the :class:`OSError` if that fails.
+
+    Lets a command find a read-only or missing output location before any work.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> probe_writable(tempfile.mkdtemp())
+    """
+    fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=folder)
+    os.close(fd)
+    os.unlink(probe)
 
 
 #: Characters that are invisible in a spreadsheet cell but break parsing: zero-width

@@ -13,7 +13,6 @@ import math
 import numbers
 import os
 import re
-import tempfile
 import unicodedata
 from collections.abc import Iterable, Sequence
 from pathlib import Path
@@ -23,7 +22,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from envlink._util import INVISIBLE_CHARS, atomic_path, did_you_mean
+from envlink._util import INVISIBLE_CHARS, atomic_path, did_you_mean, probe_writable
 from envlink.errors import InputError
 
 __all__ = [
@@ -280,9 +279,7 @@ def check_output_path(path: str | os.PathLike[str], *, force: bool = False,
     while not folder.exists() and folder != folder.parent:
         folder = folder.parent
     try:  # a read-only or missing location is found before any work is done
-        fd, probe = tempfile.mkstemp(prefix=".envlink-write-check-", dir=folder)
-        os.close(fd)
-        os.unlink(probe)
+        probe_writable(folder)
     except OSError as exc:
         reason = exc.strerror or str(exc)
         raise InputError(f"Cannot write {str(p)!r}: cannot create a file in {str(folder)!r} ({reason}).") from exc
