@@ -40,8 +40,6 @@ __all__ = ["Gazetteer", "Match", "SiteNameError", "read_gazetteer", "normalise_n
 MatchMethod = Literal["exact", "casefold", "fuzzy"]
 
 _PUNCT = re.compile(r"[\W_]+", re.UNICODE)
-#: Invisible format characters left by copy-paste (zero-width space/joiners, word
-#: joiner, BOM, soft hyphen, direction marks): removed before any comparison.
 _WHITE = re.compile(r"\s+", re.UNICODE)
 
 
