@@ -167,7 +167,12 @@ def _file_variables(source: Any) -> dict[str, dict[str, Any]]:
         first = resolve_paths(source)[0]
         if _is_tiff(first):
             return {}
-        ds = open_raw(first, chunks=None)
+        with open_raw(first, chunks=None) as raw:  # metadata only; the file is closed after
+            return _variables(raw)
+    return _variables(ds)
+
+
+def _variables(ds: xr.Dataset) -> dict[str, dict[str, Any]]:
     out = {}
     for name, v in ds.variables.items():
         out[str(name)] = {
