@@ -223,7 +223,8 @@ def _two_by_two(caller, events1, total1, events2, total2, correction, zero_cells
     bad2, items2 = _counts(x2, n2)
     bad = bad1 | bad2
     items = [(code, m1 | m2) for (code, m1), (_, m2) in zip(items1, items2, strict=True)]
-    a, b, c, d = x1, n1 - x1, x2, n2 - x2
+    with np.errstate(invalid="ignore"):  # inf - inf: already flagged nonfinite_input
+        a, b, c, d = x1, n1 - x1, x2, n2 - x2
     zero = ((a == 0) | (b == 0) | (c == 0) | (d == 0)) & ~bad
     double = (((a == 0) & (c == 0)) | ((b == 0) & (d == 0))) & ~bad
     corr = _corrected_rows(zero, bad, zero_cells)
