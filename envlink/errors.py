@@ -4,9 +4,18 @@ Every error a user can cause derives from :class:`EnvlinkError` and from the mos
 accurate builtin, so ``except ValueError`` keeps working for callers who do not
 know envlink. The command line maps :class:`InputError` to exit code 2 and every
 other :class:`EnvlinkError` to exit code 1.
+
+Every warning class of the package is defined here too (the stage modules that
+issue them re-export them under their old names), and :func:`warn` issues them at
+the user's stack level: the warning points at the first caller outside envlink.
 """
 
 from __future__ import annotations
+
+import os
+import sys
+import types
+import warnings
 
 __all__ = [
     "EnvlinkError",
@@ -14,8 +23,19 @@ __all__ = [
     "FieldError",
     "GridError",
     "ModelError",
+    "NotFittedError",
     "EnvlinkWarning",
+    "GridWarning",
+    "ValidRangeWarning",
+    "CacheWarning",
+    "BackTransformWarning",
+    "MetaRegressionWarning",
+    "DiagnosticWarning",
+    "TableWarning",
+    "InvalidValueError",
     "param_error",
+    "user_stacklevel",
+    "warn",
 ]
 
 
@@ -24,7 +44,25 @@ class EnvlinkError(Exception):
 
 
 class InputError(EnvlinkError, ValueError):
-    """Bad user input: a missing column, an unreadable table, a bad option value."""
+    """Bad user input: a missing column, an unreadable table, a bad option value.
+
+    Attributes
+    ----------
+    param : str or None
+        The Python parameter the message is about, when it is about one (set by
+        :func:`param_error`); the command line adds the matching option's name.
+
+    Examples
+    --------
+    >>> import pickle
+    >>> err = pickle.loads(pickle.dumps(InputError("bad value", param="spatial")))
+    >>> str(err), err.param
+    ('bad value', 'spatial')
+    """
+
+    def __init__(self, *args: object, param: str | None = None) -> None:
+        super().__init__(*args)
+        self.param = param  # in __dict__, which BaseException pickles with the args
 
 
 class FieldError(InputError):
@@ -70,8 +108,98 @@ class ModelError(EnvlinkError, ArithmeticError):
     """A meta-regression that cannot be fitted as asked."""
 
 
+class InvalidValueError(InputError, ModelError):
+    """A value in the data that a model cannot use: bad input (the command line exits 2).
+
+    A sampling variance that is zero, negative or infinite, an infinite effect, or a
+    number too large for float64 sums. It is also a :class:`ModelError`, so callers
+    that caught those before keep catching it.
+
+    Examples
+    --------
+    >>> issubclass(InvalidValueError, ValueError) and issubclass(InvalidValueError, ArithmeticError)
+    True
+    """
+
+
+class NotFittedError(ModelError, AttributeError):
+    """A fitted attribute or result was asked for before ``fit()``.
+
+    Examples
+    --------
+    >>> issubclass(NotFittedError, AttributeError) and issubclass(NotFittedError, ModelError)
+    True
+    """
+
+
 class EnvlinkWarning(UserWarning):
     """Base class of every warning envlink issues."""
+
+
+class TableWarning(EnvlinkWarning):
+    """A table read with a repair the user should know of (mixed encodings, a blank header cell)."""
+
+
+class GridWarning(EnvlinkWarning):
+    """Something about a grid that may make its numbers wrong or its reading slow."""
+
+
+class ValidRangeWarning(GridWarning):
+    """A valid range that looks stated in unpacked units."""
+
+
+class CacheWarning(EnvlinkWarning):
+    """The cell-series store could not be read or written; the run goes on without it."""
+
+
+class BackTransformWarning(EnvlinkWarning):
+    """A back-transformation whose result needs care (see its docstring)."""
+
+
+class MetaRegressionWarning(EnvlinkWarning):
+    """A fit that ran but needs the user's attention (non-convergence, dropped rows)."""
+
+
+class DiagnosticWarning(EnvlinkWarning):
+    """A diagnostic finished, but its result needs care (see the message)."""
+
+
+_PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__)) + os.sep
+
+
+def user_stacklevel() -> int:
+    """The ``stacklevel`` that points a warning at the first caller outside envlink.
+
+    Counted from the function that calls this one (the function that warns), so
+    ``warnings.warn(message, category, stacklevel=user_stacklevel())`` names the
+    user's line however deep inside envlink the warning arises.
+
+    Examples
+    --------
+    >>> user_stacklevel() >= 1
+    True
+    """
+    frame: types.FrameType | None = sys._getframe(1)
+    level = 1
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(_PACKAGE_DIR):
+        frame = frame.f_back
+        level += 1
+    return level
+
+
+def warn(message: str, category: type[EnvlinkWarning] = EnvlinkWarning) -> None:
+    """Issue an envlink warning at the user's stack level (see :func:`user_stacklevel`).
+
+    Examples
+    --------
+    >>> import warnings
+    >>> with warnings.catch_warnings(record=True) as caught:
+    ...     warnings.simplefilter("always")
+    ...     warn("cells were masked", GridWarning)
+    >>> caught[0].category.__name__, str(caught[0].message)
+    ('GridWarning', 'cells were masked')
+    """
+    warnings.warn(message, category, stacklevel=user_stacklevel())
 
 
 def param_error(param: str, caller: str, allowed: str, value: object) -> InputError:
@@ -91,11 +219,11 @@ def param_error(param: str, caller: str, allowed: str, value: object) -> InputEr
     Returns
     -------
     InputError
-        Ready to raise.
+        Ready to raise; its ``param`` attribute holds ``param``.
 
     Examples
     --------
     >>> str(param_error("method", "fit", "one of 'REML', 'ML'", "XX"))
     "The 'method' parameter of fit must be one of 'REML', 'ML'; got 'XX'."
     """
-    return InputError(f"The {param!r} parameter of {caller} must be {allowed}; got {value!r}.")
+    return InputError(f"The {param!r} parameter of {caller} must be {allowed}; got {value!r}.", param=param)

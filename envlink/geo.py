@@ -17,6 +17,8 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike
 
+from envlink.core.earth import EARTH_RADIUS_KM
+
 __all__ = [
     "EARTH_RADIUS_KM",
     "unit_vectors",
@@ -30,10 +32,6 @@ __all__ = [
     "polygon_cell_overlaps",
     "polygon_area_km2",
 ]
-
-#: IUGG mean Earth radius R1 in km (Moritz 2000, Geodetic Reference System 1980).
-EARTH_RADIUS_KM = 6371.0088
-
 
 def unit_vectors(lat: ArrayLike, lon: ArrayLike) -> np.ndarray:
     """3-D unit vectors of points given in degrees, shape ``(..., 3)``, float64.

@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import importlib.util
+import os
 import shutil
+import tempfile
+from pathlib import Path
 
 import pytest
 
@@ -16,7 +19,10 @@ _REQUIREMENTS = {
     "requires_dask": lambda: _have("dask"),
     "requires_geotiff": lambda: _have("rioxarray") and _have("rasterio"),
     "requires_pyarrow": lambda: _have("pyarrow"),
+    "requires_numba": lambda: _have("numba"),
+    "requires_duckdb": lambda: _have("duckdb"),
     "requires_chromium": lambda: shutil.which("chromium") is not None,
+    "requires_remote": lambda: _have("fsspec") and _have("requests"),
 }
 
 
@@ -40,3 +46,21 @@ try:
     _hyp_settings.load_profile("envlink")
 except ImportError:  # pragma: no cover - hypothesis is a test extra
     pass
+
+
+# envlink's cache folder (the cell-series store, numba's compiled kernels) is a fresh
+# folder per test session, never the user's: runs see an empty store. Compiled
+# kernels are kept between sessions in a folder of the test user's own (a link).
+def _test_cache() -> str:
+    root = Path(tempfile.mkdtemp(prefix="envlink-test-cache-"))
+    kernels = Path(tempfile.gettempdir()) / f"envlink-test-numba-{os.getuid() if hasattr(os, 'getuid') else 0}"
+    try:
+        kernels.mkdir(exist_ok=True)
+        (root / "numba").symlink_to(kernels, target_is_directory=True)
+    except OSError:  # no links here: the kernels compile once per session
+        pass
+    return str(root)
+
+
+if "ENVLINK_TEST_CACHE" not in os.environ:  # set once, by the first process (xdist workers inherit it)
+    os.environ["ENVLINK_TEST_CACHE"] = os.environ["ENVLINK_CACHE"] = _test_cache()

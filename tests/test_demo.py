@@ -10,6 +10,7 @@ read back with ``frictionless.validate``, ``pyarrow`` and ``geopandas``.
 from __future__ import annotations
 
 import json
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -25,19 +26,44 @@ from envlink.tables import read_table
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory: pytest.TempPathFactory) -> RunResult:
+def demo_cache(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
+    """The cache folder (cell-series store) of this module's demo runs ($ENVLINK_CACHE, never the user's)."""
+    with pytest.MonkeyPatch.context() as mp:
+        cache = tmp_path_factory.mktemp("cache")
+        mp.setenv("ENVLINK_CACHE", str(cache))
+        yield cache
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory: pytest.TempPathFactory, demo_cache: Path) -> RunResult:
     return run_demo(tmp_path_factory.mktemp("demo") / "out", progress=False)
 
 
 def test_fitted_slope_recovers_the_planted_relation(demo: RunResult) -> None:
     d = demo.fit.to_dict()
-    slope = next(c for c in d["coefficients"] if c["term"] == "sst_anom")
+    rows = d["coefficients"]["table"]
+    slope = next(c for c in rows if c["term"] == "sst_anom")
     b = PLANTED["slope_per_degC"]  # 0.9 per degC, planted by the generator
     assert slope["ci_low"] <= b <= slope["ci_high"], slope
     assert slope["ci_high"] - slope["ci_low"] < 0.5  # informative, not a vacuous interval
-    intercept = next(c for c in d["coefficients"] if c["term"] == "intercept")
+    intercept = next(c for c in rows if c["term"] == "intercept")
     assert intercept["ci_low"] <= PLANTED["intercept"] <= intercept["ci_high"]
-    assert d["test"] == "t" and d["k"] == demo.fit_rows == 73
+    assert d["coefficients"]["test"] == "t" and d["model"]["effects_used"] == demo.fit_rows == 73
+
+
+def test_report_from_the_command_line_alone(demo: RunResult, tmp_path: Path, capsys) -> None:
+    # the demo's folder -> envlink report, figures and all: a site map, per covariate its QA
+    # flags and distribution (3 x 2), and the bubble, forest, funnel and residual plots
+    out, figs = tmp_path / "report.html", tmp_path / "figures"
+    assert main(["report", str(demo.out), "-o", str(out), "--figures", str(figs),
+                 "--label", "reef", "--forest-order", "precision"]) == 0
+    page = out.read_text(encoding="utf-8")
+    assert page.count("data:image/png;base64,") == 11 == (demo.out / "report.html").read_text(
+        encoding="utf-8").count("data:image/png;base64,")
+    assert "against sst_anom, the first numeric term of the model" in page
+    assert "labelled by reef" in page and "3 covariate window(s)" in page
+    assert len(list(figs.glob("*.png"))) == 4
+    capsys.readouterr()
 
 
 def test_every_input_row_and_column_in_order(demo: RunResult) -> None:
@@ -92,20 +118,31 @@ def test_outputs_written_and_read_back(demo: RunResult) -> None:
     pq = pd.read_parquet(out / "vell_enriched.parquet")
     np.testing.assert_allclose(pq["sst_anom"].to_numpy(float), csv["sst_anom"].to_numpy(float),
                                rtol=1e-15, atol=0, equal_nan=True)  # fmt: skip
-    g = gpd.read_file(out / "vell_enriched.gpkg")
-    assert len(g) == 76
-    regions = g["reef"].isin(["Vell Mor Lagoon", "Tarrin Barrier", "Osk Shoals"])
-    assert set(g.loc[regions].geometry.geom_type) == {"Polygon"}
+    g = gpd.read_file(out / "vell_enriched.gpkg", layer="vell_enriched")
+    assert len(g) == 76 and set(g.geometry.dropna().geom_type) == {"Point"}  # every row, one type
+    polygons = gpd.read_file(out / "vell_enriched.gpkg", layer="vell_enriched_regions")
+    regions = demo.table["site_wkt"].fillna("").astype(str).str.startswith("POLYGON")
+    assert len(polygons) == int(regions.sum()) > 0
+    assert set(polygons["reef"]) <= {"Vell Mor Lagoon", "Tarrin Barrier", "Osk Shoals"}
+    assert set(polygons.geometry.geom_type) == {"Polygon"}
     html = (out / "report.html").read_text()
     assert html.count("<img") >= 5 and "Vell Archipelago" in html
+    # reefs share SST cells: counted in fit.json's diagnostics, fit.txt and the report
+    shared = json.loads((out / "fit.json").read_text())["diagnostics"]["spatial"]["shared_cells"]
+    assert [s["covariate"] for s in shared] == ["sst_anom"] and shared[0]["cells_shared"] > 0
+    assert csv["sst_anom_flags"].str.contains("shared_grid_cell").sum() == shared[0]["rows_sharing"]
+    assert "\nDiagnostics\n  Shared grid cells:" in (out / "fit.txt").read_text()
+    assert "<h2>What was corrected, and how</h2>" in html and "shared grid cell" in html
 
 
-def test_rerun_reuses_the_extraction_cache(demo: RunResult, capsys) -> None:
-    assert any((demo.out / ".cache").iterdir())
+def test_rerun_reads_the_cell_series_store(demo: RunResult, demo_cache: Path, capsys) -> None:
+    # the store lives in the cache folder ($ENVLINK_CACHE: this module's own) ...
+    assert any((demo_cache / "cells").iterdir())
+    assert not (demo.out / ".cache").exists()  # ... never in the output folder
     code = main(["demo", "--out", str(demo.out), "--force", "--no-progress"])
     assert code == 0
     desc = json.loads((demo.out / "datapackage.json").read_text())
-    assert {v["cache"] for v in desc["envlink"]["covariates"].values()} == {"hit"}
+    assert {v["cells"] for v in desc["envlink"]["covariates"].values()} == {"store"}
     assert "sst_anom" in capsys.readouterr().err
     again = pd.read_csv(demo.out / "vell_enriched.csv")
     np.testing.assert_allclose(again["sst_anom"].to_numpy(float),
@@ -149,7 +186,7 @@ def test_generator_is_reproducible_and_used_when_files_are_missing(tmp_path: Pat
                                                                   monkeypatch) -> None:
     import envlink.demo_grids as demo_grids
 
-    from envlink.project import _demo_project_dir
+    from envlink.project.run import _demo_project_dir
 
     monkeypatch.setattr(demo_grids, "data_path", lambda name: tmp_path / "absent" / name)
     folder, tmp = _demo_project_dir()
@@ -184,3 +221,32 @@ def test_generator_command_line_writes_every_file(tmp_path: Path, capsys) -> Non
     assert sorted(Path(p).name for p in printed) == sorted(DEMO_FILES)
     truth = json.loads((tmp_path / "vell_truth.json").read_text())
     assert truth["planted"] == PLANTED and truth["baseline"] == [1991, 2020]
+
+
+_NO_PYARROW = """
+import sys
+
+class _Refuse:  # an import hook: pyarrow cannot be imported, as in a plain install
+    def find_spec(self, name, path=None, target=None):
+        if name == "pyarrow" or name.startswith("pyarrow."):
+            raise ModuleNotFoundError(f"No module named {name!r}", name=name)
+        return None
+
+sys.meta_path.insert(0, _Refuse())
+from envlink.cli import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+def test_demo_runs_without_pyarrow_and_says_parquet_was_left_out(tmp_path: Path, demo_cache: Path) -> None:
+    import subprocess
+    import sys
+
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-c", _NO_PYARROW, "demo", "--out", str(out), "--no-progress"],
+                          capture_output=True, text=True, timeout=600)  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    assert "note: the Parquet table was not written: it needs pyarrow" in proc.stderr
+    written = sorted(p.name for p in out.iterdir())
+    assert written == ["datapackage.json", "fit.json", "fit.txt", "report.html", "vell_enriched.csv",
+                       "vell_enriched.gpkg"]  # fmt: skip

@@ -298,14 +298,14 @@ def test_effect_sizes_text_table_and_options() -> None:
     assert_allclose(rr["effect"], ef.log_response_ratio(12, 3, 20, 10, 2, 20, bias_correction=True).effect, rtol=1e-15)
 
 
-@pytest.mark.parametrize("kind", sorted(ef.KINDS))
+@pytest.mark.parametrize("kind", ef.EFFECT_KINDS.names())
 def test_every_kind_reachable_from_table(kind: str) -> None:
-    _, needed, _ = ef.KINDS[kind]
+    needed = ef.EFFECT_KINDS[kind].info["roles"]
     values = {"events": 3, "total": 20, "events1": 3, "total1": 20, "events2": 6, "total2": 22,
               "mean1": 5.0, "sd1": 1.0, "n1": 12, "mean2": 4.0, "sd2": 1.5, "n2": 14, "r": 0.3, "n": 40}  # fmt: skip
     t = pd.DataFrame({f"col_{k}": [values[k]] for k in needed})
     out = envlink.effect_sizes(t, kind, **{k: f"col_{k}" for k in needed})  # type: ignore[arg-type]
-    direct = ef.KINDS[kind][0](*[values[k] for k in needed])
+    direct = getattr(ef, kind)(*[values[k] for k in needed])
     assert_allclose(out["effect"], direct.effect, rtol=1e-15)
     assert_allclose(out["variance"], direct.variance, rtol=1e-15)
     assert np.isfinite(out["effect"]).all()
@@ -343,9 +343,9 @@ def test_any_numbers_give_a_value_or_a_reason() -> None:
     number = st.one_of(st.floats(allow_nan=True, allow_infinity=True, width=64), st.integers(-5, 300))
 
     @settings(max_examples=150, deadline=None)
-    @given(st.sampled_from(sorted(ef.KINDS)), st.lists(st.lists(number, min_size=6, max_size=6), min_size=1, max_size=8))
+    @given(st.sampled_from(ef.EFFECT_KINDS.names()), st.lists(st.lists(number, min_size=6, max_size=6), min_size=1, max_size=8))
     def check(kind: str, rows: list[list[float]]) -> None:
-        func, needed, _ = ef.KINDS[kind]
+        func, needed = getattr(ef, kind), ef.EFFECT_KINDS[kind].info["roles"]
         cols = np.array(rows, dtype=np.float64)[:, : len(needed)].T
         res = func(*cols)
         assert res.effect.shape == res.variance.shape == res.flags.shape == (len(rows),)

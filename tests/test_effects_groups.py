@@ -89,7 +89,7 @@ def test_excluded_records_and_flags() -> None:
 def test_group_effects_errors() -> None:
     rec = pd.DataFrame({"site": ["a"], "x": [1.0], "y": [2.0], "n": [1]})
     with pytest.raises(InputError, match="'kind' parameter of group_effects"):
-        envlink.group_effects(rec, "site", "hedges_g", x="x", y="y")  # type: ignore[arg-type]
+        envlink.group_effects(rec, "site", "log_odds_ratio", x="x", y="y")  # type: ignore[arg-type]
     with pytest.raises(InputError, match="needs x= and y="):
         envlink.group_effects(rec, "site", "fisher_z", x="x")
     with pytest.raises(InputError, match="needs outcome="):
@@ -123,3 +123,188 @@ def test_empty_records_and_categorical_groups() -> None:
     # only observed groups, in order of first appearance (common practice: no empty groups)
     assert out["g"].astype(str).tolist() == ["b", "a"] and out["events"].tolist() == [1, 0]
     assert_allclose(out["effect"], [0.0, math.log(0.5 / 1.5)], rtol=1e-12, atol=1e-15)
+
+
+# ------------------------------------------------------------- two arms per group
+def _two_arm_records(seed: int = 11, groups: int = 80) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(2, 40, groups)
+    g = np.repeat([f"s{i:03d}" for i in range(groups)], sizes)
+    arm = rng.choice(["treated", "control", "pilot"], g.size, p=[0.45, 0.45, 0.1])
+    mass = rng.gamma(6.0, 2.0, g.size) + np.where(arm == "treated", 1.5, 0.0)
+    perm = rng.permutation(g.size)
+    rec = pd.DataFrame({"site": g[perm], "arm": arm[perm], "mass": mass[perm]})
+    rec.loc[5, "mass"] = np.nan
+    return rec
+
+
+def _arm_stats(part: pd.DataFrame, label: str) -> tuple[float, float, int]:
+    vals = part.loc[part["arm"] == label, "mass"].dropna().to_numpy()
+    return vals.mean(), vals.std(ddof=1), vals.size
+
+
+def test_hedges_g_per_group_matches_statsmodels_and_borenstein() -> None:
+    from statsmodels.stats.meta_analysis import effectsize_smd
+
+    rec = _two_arm_records()
+    out = envlink.group_effects(rec, "site", "hedges_g", value="mass", arm="arm",
+                                arms=("treated", "control"), exact=False)
+    assert list(out.columns) == ["site", "n", "n_excluded", "n1", "mean1", "sd1", "n2", "mean2",
+                                 "sd2", "effect", "variance", "effect_flags"]
+    ok = out[(out["n1"] >= 2) & (out["n2"] >= 2)]
+    assert len(ok) > 60
+    for row in ok.itertuples():
+        part = rec[rec["site"] == row.site]
+        m1, s1, n1 = _arm_stats(part, "treated")
+        m2, s2, n2 = _arm_stats(part, "control")
+        assert (row.n1, row.n2) == (n1, n2)
+        assert_allclose([row.mean1, row.sd1, row.mean2, row.sd2], [m1, s1, m2, s2], rtol=1e-12)
+        g_sm, _ = effectsize_smd(m1, s1, n1, m2, s2, n2)  # statsmodels: J = 1 - 3 / (4 N - 9)
+        assert_allclose(row.effect, g_sm, rtol=1e-12)
+        # Borenstein et al. (2009, ch. 4): V_g = J² ((n1 + n2) / (n1 n2) + d² / (2 (n1 + n2)))
+        j = 1 - 3 / (4 * (n1 + n2 - 2) - 1)
+        d = row.effect / j
+        assert_allclose(row.variance, j**2 * ((n1 + n2) / (n1 * n2) + d**2 / (2 * (n1 + n2))),
+                        rtol=1e-12)
+        assert row.n_excluded == int((part["arm"] == "pilot").sum() + part["mass"].isna().sum())
+
+
+def test_ln_vr_and_ln_cvr_per_group_match_nakagawa_formulas() -> None:
+    rec = _two_arm_records(seed=12)
+    vr = envlink.group_effects(rec, "site", "ln_vr", value="mass", arm="arm",
+                               arms=("treated", "control"))
+    cvr = envlink.group_effects(rec, "site", "ln_cvr", value="mass", arm="arm",
+                                arms=("treated", "control"))
+    for a, b in zip(vr.itertuples(), cvr.itertuples(), strict=True):
+        if min(a.n1, a.n2) < 2:
+            assert np.isnan(a.effect) and "sample_size_below_2" in a.effect_flags
+            continue
+        part = rec[rec["site"] == a.site]
+        m1, s1, n1 = _arm_stats(part, "treated")
+        m2, s2, n2 = _arm_stats(part, "control")
+        # Nakagawa et al. (2015), Methods Ecol. Evol. 6:143, eqs. for lnVR and lnCVR
+        c = 1 / (2 * (n1 - 1)) - 1 / (2 * (n2 - 1))
+        v = 1 / (2 * (n1 - 1)) + 1 / (2 * (n2 - 1))
+        assert_allclose(a.effect, math.log(s1 / s2) + c, rtol=1e-12)
+        assert_allclose(a.variance, v, rtol=1e-12)
+        assert_allclose(b.effect, math.log((s1 / m1) / (s2 / m2)) + c, rtol=1e-12)
+        assert_allclose(b.variance, s1**2 / (n1 * m1**2) + s2**2 / (n2 * m2**2) + v, rtol=1e-12)
+
+
+def test_two_arm_kinds_need_a_value_an_arm_and_two_labels() -> None:
+    rec = _two_arm_records()
+    with pytest.raises(InputError, match="needs value= and arm="):
+        envlink.group_effects(rec, "site", "hedges_g", value="mass")
+    with pytest.raises(InputError, match="'arms' parameter of group_effects must be two different"):
+        envlink.group_effects(rec, "site", "hedges_g", value="mass", arm="arm", arms=("x", "x"))
+    with pytest.raises(InputError, match="takes no arms="):
+        envlink.group_effects(rec, "site", "fisher_z", x="mass", y="mass", arms=("a", "b"))
+
+
+# ------------------------------------------------------------- records in Parquet
+KINDS = [("fisher_z", {"x": "x", "y": "y"}), ("logit_proportion", {"outcome": "sick"}),
+         ("freeman_tukey", {"outcome": "sick"}),
+         ("hedges_g", {"value": "mass", "arm": "arm", "arms": ("t", "c")}),
+         ("ln_cvr", {"value": "mass", "arm": "arm", "arms": ("t", "c")})]
+
+
+def _mixed_records(seed: int = 21, groups: int = 300) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(1, 30, groups)
+    g = np.repeat(np.arange(groups, dtype=np.int64), sizes)
+    perm = rng.permutation(g.size)
+    x = rng.normal(size=g.size) * 10 + 1e6  # a large offset: the sums must stay exact
+    rec = pd.DataFrame({"site": g[perm], "x": x, "y": 0.4 * (x - 1e6) + rng.normal(size=g.size),
+                        "sick": rng.integers(0, 2, g.size).astype(float),
+                        "arm": rng.choice(["t", "c", "o"], g.size, p=[0.45, 0.45, 0.1]),
+                        "mass": rng.gamma(5.0, 2.0, g.size)})
+    rec.loc[3, "x"] = np.nan
+    rec.loc[4, "sick"] = 3.0  # not 0/1: excluded and flagged
+    rec.loc[9, "mass"] = np.inf
+    return rec
+
+
+def _write_two_files(rec: pd.DataFrame, folder) -> None:
+    half = len(rec) // 2
+    rec.iloc[:half].to_parquet(folder / "a.parquet", row_group_size=700)
+    rec.iloc[half:].to_parquet(folder / "b.parquet", row_group_size=700)
+
+
+def _assert_same_table(got: pd.DataFrame, want: pd.DataFrame) -> None:
+    assert list(got.columns) == list(want.columns)
+    assert got.iloc[:, 0].tolist() == want.iloc[:, 0].tolist()  # order of first appearance
+    for c in want.columns[1:]:
+        if want[c].dtype.kind in "fiub":
+            assert_allclose(got[c].to_numpy(float), want[c].to_numpy(float), rtol=1e-9, atol=1e-13,
+                            err_msg=c)
+        else:
+            assert got[c].tolist() == want[c].tolist(), c
+
+
+@pytest.mark.requires_duckdb
+@pytest.mark.requires_pyarrow
+@pytest.mark.parametrize(("kind", "cols"), KINDS)
+def test_parquet_records_by_duckdb_equal_records_in_memory(tmp_path, kind, cols) -> None:
+    from envlink.effects.streaming import summary_duckdb  # noqa: F401 - the engine under test
+
+    rec = _mixed_records()
+    _write_two_files(rec, tmp_path)
+    want = envlink.group_effects(rec, "site", kind, **cols)
+    _assert_same_table(envlink.group_effects(tmp_path, "site", kind, **cols), want)
+
+
+@pytest.mark.requires_dask
+@pytest.mark.requires_pyarrow
+@pytest.mark.parametrize(("kind", "cols"), KINDS[:2] + KINDS[3:4])
+def test_parquet_records_by_dask_equal_records_in_memory(tmp_path, monkeypatch, kind, cols) -> None:
+    from envlink.effects import streaming
+
+    rec = _mixed_records(seed=22)
+    _write_two_files(rec, tmp_path)
+    monkeypatch.setattr(streaming, "summary_duckdb", streaming.summary_dask)  # the engine without DuckDB
+    want = envlink.group_effects(rec, "site", kind, **cols)
+    _assert_same_table(envlink.group_effects(tmp_path, "site", kind, **cols), want)
+
+
+@pytest.mark.requires_duckdb
+def test_group_correlations_match_numpy_corrcoef_and_duckdb_corr(tmp_path) -> None:
+    import duckdb
+
+    rng = np.random.default_rng(5)
+    g = rng.integers(0, 500, 20_000)
+    x = rng.normal(size=g.size) + 50.0
+    rec = pd.DataFrame({"g": g, "x": x, "y": 0.2 * x + rng.normal(size=g.size)})
+    out = envlink.group_effects(rec, "g", "fisher_z", x="x", y="y").set_index("g")
+    for key in rng.choice(out.index.to_numpy(), 40, replace=False):  # numpy.corrcoef reference
+        part = rec[rec["g"] == key]
+        assert_allclose(out.loc[key, "r"], np.corrcoef(part["x"], part["y"])[0, 1], rtol=1e-12)
+    ref = duckdb.sql("SELECT g, corr(x, y) AS r FROM rec GROUP BY g").df().set_index("g")
+    assert_allclose(out["r"].to_numpy(), ref.loc[out.index, "r"].to_numpy(), rtol=1e-11)
+    rec.to_parquet(tmp_path / "r.parquet")
+    streamed = envlink.group_effects(tmp_path / "r.parquet", "g", "fisher_z", x="x", y="y")
+    assert_allclose(streamed["r"].to_numpy(), out["r"].to_numpy(), rtol=1e-11)
+
+
+@pytest.mark.requires_dask
+@pytest.mark.requires_pyarrow
+def test_parquet_records_on_a_local_cluster_equal_records_in_memory(tmp_path) -> None:
+    distributed = pytest.importorskip("distributed")
+    rec = _mixed_records(seed=23)
+    _write_two_files(rec, tmp_path)
+    want = envlink.group_effects(rec, "site", "fisher_z", x="x", y="y")
+    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1,
+                                  dashboard_address=":0") as cluster:
+        got = envlink.group_effects(tmp_path, "site", "fisher_z", x="x", y="y",
+                                    client=cluster.scheduler_address)
+    _assert_same_table(got, want)
+
+
+@pytest.mark.quick_benchmark
+@pytest.mark.requires_duckdb
+def test_quick_benchmark_group_effects_from_parquet() -> None:
+    from benchmarks.bench_group_effects import main
+
+    res = main(["--quick"])
+    z = res["kinds"]["fisher_z"]
+    assert z["spot_check_max_abs_r_diff"] < 1e-12  # numpy.corrcoef of the records
+    assert z["envlink_peak_mib"] < 1024

@@ -1,6 +1,6 @@
 """Error messages users act on: each names the value, the row or column, and what is allowed.
 
-One file for the whole project (STYLE.md, "Errors and warnings"); each stage appends a
+One file for the whole project (DEVELOPERS.md, "Conventions"); each stage appends a
 section. Messages are matched with ``pytest.raises(..., match=...)``.
 """
 
@@ -187,3 +187,136 @@ def test_closed_stdout_is_not_reported_as_a_bug(tmp_path, monkeypatch, capsys) -
     monkeypatch.setattr(sys, "stdout", Closed())
     assert main(["grid", str(path), "--json"]) == 1
     assert "bug" not in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------------------------------
+# cli: library messages name Python parameters; the command line shows its options
+# ---------------------------------------------------------------------------------------
+
+
+@pytest.fixture
+def cli_files(tmp_path, monkeypatch):
+    import numpy as np
+    import xarray as xr
+
+    monkeypatch.setenv("ENVLINK_CACHE", str(tmp_path / "cache"))
+    vals = np.arange(24 * 3 * 2, dtype=float).reshape(24, 3, 2)
+    coords = {"time": pd.date_range("2000-01-01", periods=24, freq="MS"), "lat": [0.5, 1.5, 2.5], "lon": [10.5, 11.5]}
+    dims = ("time", "lat", "lon")
+    xr.Dataset({"sst": (dims, vals, {"units": "degC"})}, coords=coords).to_netcdf(tmp_path / "g.nc")
+    xr.Dataset({"sst": (dims, vals, {"units": "degC"}), "air": (dims, vals, {"units": "degC"})},
+               coords=coords).to_netcdf(tmp_path / "two.nc")
+    pd.DataFrame({"id": [1], "site_lat": [1.2], "site_lon": [10.7], "period_start": ["2000-03-01"],
+                  "period_end": ["2000-03-31"]}).to_csv(tmp_path / "located.csv", index=False)
+    pd.DataFrame({"id": [1], "reef": ["Kestrel Reef"], "when": ["summer 2010"]}).to_csv(tmp_path / "s.csv", index=False)
+    return tmp_path
+
+
+def _cli(capsys, *argv: str) -> tuple[int, str]:
+    from envlink.cli import main
+
+    rc = main([str(a) for a in argv])
+    return rc, capsys.readouterr().err
+
+
+def test_cli_parameter_error_names_the_option(cli_files, capsys) -> None:
+    f = cli_files
+    rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "g.nc", "--name", "x",
+                   "--min-coverage", "2", "-o", f / "o.csv")
+    assert rc == 2
+    assert "The 'min_coverage' parameter of attach (option --min-coverage) must be a fraction from 0 to 1; got 2.0." in err
+
+
+def test_cli_parameter_mentions_are_written_as_options(cli_files, capsys) -> None:
+    f = cli_files
+    rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "g.nc", "--name", "x",
+                   "--mmm", "28", "-o", f / "o.csv")
+    # the library says "given only with stat='dhw-max'"; the command line says --stat dhw-max
+    assert rc == 2 and "(option --mmm) must be given only with --stat dhw-max; got 28.0." in err
+    rc, err = _cli(capsys, "grid", f / "two.nc")
+    assert rc == 2 and "holds several gridded variables: sst, air. Choose one with --var NAME." in err
+    rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "two.nc", "--name", "x", "-o", f / "o.csv")
+    assert rc == 2 and "Choose one with --var NAME." in err
+
+
+def test_library_messages_name_the_python_parameter(cli_files) -> None:
+    from envlink.tables import check_output_path
+
+    with pytest.raises(InputError, match=r"exists; pass force=True to overwrite it\.$"):
+        check_output_path(cli_files / "s.csv")
+    with pytest.raises(InputError, match=r"Choose one with variable='NAME'\.$"):
+        envlink.open_grid(cli_files / "two.nc")
+
+
+def test_cli_force_and_gazetteer_name_options(cli_files, capsys) -> None:
+    f = cli_files
+    rc, err = _cli(capsys, "sites", f / "s.csv", "-o", f / "located.csv", "--period", "when")
+    assert rc == 2 and "exists; pass --force to overwrite it." in err and "force=True" not in err
+    pd.DataFrame({"id": [1], "lat": ["1"], "lon": ["2"]}).to_csv(f / "gz.csv", index=False)
+    rc, err = _cli(capsys, "sites", f / "s.csv", "-o", f / "new.csv", "--site", "reef", "--gazetteer", f / "gz.csv")
+    assert rc == 2 and "name it with --gazetteer-name COLUMN." in err
+
+
+def test_cli_notes_of_grid_name_the_options(tmp_path, capsys) -> None:
+    import numpy as np
+    import xarray as xr
+
+    from envlink.cli import main
+
+    path = tmp_path / "nocal.nc"
+    xr.Dataset(
+        {"sst": (("time", "lat", "lon"), np.zeros((2, 2, 2)), {"units": "degC"})},
+        coords={"time": ("time", [0.0, 31.0], {"units": "days since 2000-01-01"}),
+                "lat": ("lat", [0.5, 1.5], {"units": "degrees_north"}),
+                "lon": ("lon", [0.5, 1.5], {"units": "degrees_east"})},
+    ).to_netcdf(path)
+    assert envlink.grid_info(path).warnings  # the Python notes say calendar='NAME' ...
+    assert any("calendar='NAME'" in w for w in envlink.grid_info(path).warnings)
+    assert main(["grid", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "(declare another with --calendar NAME)" in out and "calendar='NAME'" not in out
+
+
+@pytest.mark.parametrize("command", ["sites", "grid", "attach", "fit", "run", "demo"])
+def test_param_options_name_real_options(command: str) -> None:
+    # every option a PARAM_OPTIONS mapping names is an option of that command's parser
+    from envlink.cli import build_parser, param_options
+    from envlink.commands.options import option_names
+
+    parser = build_parser()
+    sub = next(a for a in parser._actions if a.dest == "command")
+    known = {s for a in sub.choices[command]._actions for s in a.option_strings}
+    options = param_options(command)
+    assert options, f"envlink.commands.{command} declares no PARAM_OPTIONS"
+    for param, spec in options.items():
+        assert set(option_names(spec)) <= known, (command, param, spec)
+
+
+def test_locate_notes_carry_both_names() -> None:
+    # the notes are cells of the output table, the same from Python and from `envlink sites`
+    t = pd.DataFrame({"lat": ["-8.5", "-8.5"], "lon": ["160.25", "160.25"], "when": ["summer 2010", "05/06/2011"]})
+    ambiguous = envlink.locate(t, lat="lat", lon="lon", period="when")["locate_notes"].tolist()
+    assert "(plain_season_south='austral' or 'boreal'; --plain-season-south on the command line)" in ambiguous[0]
+    assert "(order='dayfirst' or 'monthfirst'; --dayfirst or --monthfirst on the command line)" in ambiguous[1]
+    read = envlink.locate(t.iloc[:1], lat="lat", lon="lon", period="when", plain_season_south="austral")
+    assert "(plain_season_south='austral'; --plain-season-south austral on the command line)" in read["locate_notes"][0]
+
+
+def test_command_line_text_examples_run() -> None:
+    # tests/test_docstrings.py leaves envlink.commands out; the translation's examples run here
+    import doctest
+
+    import envlink.commands.options as options
+
+    result = doctest.testmod(options, optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE)
+    assert result.attempted >= 5 and result.failed == 0
+
+
+def test_command_line_text_leaves_lists_and_unknown_values_alone() -> None:
+    from envlink.commands.options import command_line_text
+
+    opts = {"band_dates": "--band-dates", "force": "--force", "units": "--units"}
+    text = "give band_dates=[(start, end), ...] or band_dates= for one file; force=False; units='kg m-2 s-1'"
+    assert command_line_text(text, opts) == (
+        "give band_dates=[(start, end), ...] or --band-dates for one file; force=False; --units 'kg m-2 s-1'"
+    )

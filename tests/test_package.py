@@ -22,6 +22,34 @@ def test_locate_subpackage_is_callable_and_importable() -> None:
     assert callable(envlink.locate)
 
 
+def test_locate_shows_the_stage_signature() -> None:
+    import inspect
+
+    from envlink.locate.sites import locate
+
+    params = inspect.signature(envlink.locate).parameters
+    assert {"table", "lat", "lon", "coords", "site", "gazetteer", "period", "start", "end", "order",
+            "plain_season_south", "season_months", "fuzzy_threshold", "fuzzy_margin"} <= set(params)
+    assert inspect.signature(envlink.locate) == inspect.signature(locate)
+
+
+def test_help_of_locate_shows_the_stage_parameters() -> None:
+    import pydoc
+
+    text = pydoc.render_doc(envlink.locate, renderer=pydoc.plaintext)
+    assert "The locate stage: reported coordinates" in text  # the package's own docstring
+    for word in ("lat, lon : str", "period : str", "plain_season_south", "fuzzy_margin", "locate(table"):
+        assert word in text, word
+    assert ">>>" not in text  # the stage's examples run where they are written, not twice
+
+
+def test_import_locate_stays_cheap() -> None:
+    code = ("import sys, envlink.locate; "
+            "print(sorted(m for m in ('pandas', 'numpy', 'envlink.locate.sites') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
 def test_error_hierarchy_subclasses_builtins() -> None:
     assert issubclass(envlink.InputError, ValueError)
     assert issubclass(envlink.GridError, OSError)
@@ -72,3 +100,12 @@ def test_envlink_warnings_print_as_plain_messages(monkeypatch, capsys) -> None:
     err = capsys.readouterr().err
     assert "envlink sites: warning: 3 rows were dropped" in err
     assert "warnings.warn" not in err
+
+
+def test_dir_lists_only_the_api() -> None:
+    # what a user sees with dir(envlink) or tab completion is the public API, nothing else
+    code = "import envlink; print(' '.join(dir(envlink)))"
+    names = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                           check=True).stdout.split()
+    assert names == sorted(envlink.__all__)
+    assert not {"Any", "importlib", "annotations", "errors", "_LAZY"} & set(names)

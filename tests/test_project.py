@@ -17,10 +17,10 @@ from envlink.demo_grids import data_path
 
 import envlink
 from envlink import InputError
-from envlink._projectschema import key_lines
 from envlink.cli import main
 from envlink.export import file_sha256
 from envlink.project import load_project, run_project
+from envlink.project.schema import key_lines
 
 STUDIES = """study,lat,lon,when,sick,seen,depth
 A,-9.51,-117.20,March 2008,12,80,3
@@ -94,7 +94,7 @@ def test_key_lines_follow_the_text() -> None:
     [
         ('method = "REML"', 'methd = "REML"',
          r"p\.toml, line LINE: unknown key 'methd' in \[model\]\. Did you mean 'method'\? "
-         r"Allowed keys: moderators, method, test, nested, cluster, permutations, seed\."),
+         r"Allowed keys: moderators, method, test, nested, cluster, permutations, seed, permute\."),
         ('method = "REML"', 'method = "reml2"',
          r"line LINE: the key 'model\.method' must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; "
          r"got 'reml2'\."),
@@ -103,8 +103,15 @@ def test_key_lines_follow_the_text() -> None:
         ('kind = "logit_proportion"', 'kind = "logit"',
          r"line LINE: the key 'effects\.kind' must be one of 'logit_proportion', .*'ln_cvr'; "
          r"got 'logit'\."),
-        ('formats = ["csv", "parquet"]', 'formats = ["csv", "xlsx"]',
-         r"line LINE: the key 'export\.formats' must be a list drawn from 'csv', 'parquet', 'gpkg'"),
+        ('formats = ["csv", "parquet"]', 'formats = ["csv", "xls"]',
+         r"line LINE: the key 'export\.formats' must be a list drawn from 'csv', 'csv-bom', 'parquet', "
+         r"'gpkg', 'xlsx'"),
+        ('formats = ["csv", "parquet"]', 'formats = ["csv", "shp"]',
+         r"line LINE: the key 'export\.formats' must be .*; got \['csv', 'shp'\]\. 'shp': a shapefile "
+         r"cuts column names to 10 characters.*write 'gpkg' instead"),
+        ('formats = ["csv", "parquet"]', 'formats = ["csv", "csv-excel"]',
+         r"line LINE: the key 'export\.formats' must be .*; got \['csv', 'csv-excel'\]\. both 'csv' and "
+         r"'csv-bom': they write the same file; choose one"),
         ("report = false", 'report = "no"', r"line LINE: the key 'export\.report' must be true or false"),
         ('path = "studies.csv"', 'file = "studies.csv"',
          r"line LINE: unknown key 'file' in \[studies\]\. Allowed keys: path, study\."),
@@ -148,13 +155,13 @@ def _raises_at(tmp_path: Path, text: str, needle: str, pattern: str) -> None:
 def test_covariate_errors_name_the_entry_and_line(tmp_path: Path) -> None:
     text = BASE + COVARIATES
     _raises_at(tmp_path, text, 'stat = "avg"',
-               r"the key 'covariates\[1\]\.stat' must be mean, min, max, sum, std, quantile:Q, "
-               r"above:T, degree-days:T, anomaly, mmm or dhw-max; got 'avg'\.")
+               r"the key 'covariates\[1\]\.stat' must be one of 'mean', 'min', 'max', 'sum', 'std', "
+               r"'quantile:Q', 'above:T', 'degree-days:T', 'anomaly', 'mmm', 'dhw-max'; got 'avg'\.")
     _raises_at(tmp_path, text.replace('stat = "avg"', 'window = "lag3M"'), 'window = "lag3M"',
-               r"the key 'covariates\[1\]\.window' must be period, lag:N\{D\|M\|Y\}")
+               r"the key 'covariates\[1\]\.window' must be one of 'period', 'lag:N\{D\|M\|Y\}'")
     _raises_at(tmp_path, text.replace('stat = "avg"', 'spatial = "nearest-valid"'), "spatial",
-               r"the key 'covariates\[1\]\.spatial' must be nearest, bilinear, "
-               r"nearest-valid:Dkm, buffer:Rkm or polygon")
+               r"the key 'covariates\[1\]\.spatial' must be one of 'nearest', 'bilinear', "
+               r"'nearest-valid:Dkm', 'buffer:Rkm', 'polygon'")
     bad_grid = text.replace('grid = "sst"\nstat = "avg"', 'grid = "sts"')
     _raises_at(tmp_path, bad_grid, 'grid = "sts"',
                r"the key 'covariates\[1\]\.grid' must be the name of a \[grids\.NAME\] table "
@@ -220,15 +227,15 @@ def test_run_without_grids_end_to_end_and_force(tmp_path: Path) -> None:
     direct = envlink.MetaRegression(moderators="depth", method="REML", test="knapp-hartung").fit(
         used, effect="effect", variance="variance")
     got = json.loads((out / "fit.json").read_text())
-    np.testing.assert_allclose([c["estimate"] for c in got["coefficients"]],
-                               [c["estimate"] for c in direct.to_dict()["coefficients"]],
+    np.testing.assert_allclose([c["estimate"] for c in got["coefficients"]["table"]],
+                               [c["estimate"] for c in direct.to_dict()["coefficients"]["table"]],
                                rtol=1e-10)  # fmt: skip
     desc = json.loads((out / "datapackage.json").read_text())
     assert desc["envlink"]["project_sha256"] == file_sha256(p)
     back = pd.read_parquet(out / "enriched.parquet")
     assert back["study"].tolist() == ["A", "A", "B", "B", "C", "C"]
     before = (out / "enriched.csv").read_bytes()
-    with pytest.raises(InputError, match=r"Output exists.*enriched\.csv.*--force"):
+    with pytest.raises(InputError, match=r"Output exists.*enriched\.csv.*force=True"):
         run_project(p, progress=False)
     assert (out / "enriched.csv").read_bytes() == before
     again = run_project(p, progress=False, force=True, out=out)
@@ -241,9 +248,14 @@ def test_permutation_test_and_report_from_project(tmp_path: Path) -> None:
     result = run_project(p, progress=False)
     perm = json.loads(result.paths["datapackage"].read_text())["envlink"]["model"]["permutation"]
     assert perm["n_permutations"] == 19 and perm["seed"] == 7
-    assert 1 / 20 <= perm["Q_M_p"] <= 1  # (1 + count) / (1 + N), common practice
+    assert 1 / 20 <= perm["omnibus"]["p"] <= 1  # (1 + count) / (1 + N), common practice
+    assert perm["terms"][0]["label"] == f"permutation p for {perm['terms'][0]['term']} (this model)"
     html = result.paths["report"].read_text()
-    assert "permutation-corrected p" in html
+    assert "(this model) = " in html and "correct for this one model only" in html
+    fit = json.loads(result.paths["fit_json"].read_text())
+    assert fit["moderator_test"]["permutation"]["omnibus"]["p"] == perm["omnibus"]["p"]
+    assert "permutation p (this model)" in html  # beside each coefficient in the model's table
+    assert "omnibus permutation p of Q_M" in result.paths["fit_text"].read_text()
     bad = _project(tmp_path, BASE.replace('method = "REML"', 'method = "REML"\npermutations = 9.5'),
                    name="bad.toml")
     with pytest.raises(InputError, match=r"'model\.permutations' must be a whole number >= 0"):
@@ -264,7 +276,7 @@ def test_cli_run_exit_codes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) 
 
 
 def test_every_schema_key_is_documented() -> None:
-    from envlink._projectschema import SECTIONS
+    from envlink.project.schema import SECTIONS
 
     doc = (Path(__file__).parents[1] / "docs" / "project-file.md").read_text()
     headings = {"grids.*": "## `[grids.NAME]`", "covariates[]": "## `[[covariates]]`"}
@@ -306,7 +318,8 @@ def test_stage_errors_name_the_covariate_and_line(tmp_path: Path) -> None:
 
 
 def _fit_depth(result) -> float:
-    return next(c["estimate"] for c in result.fit.to_dict()["coefficients"] if c["term"] == "depth")
+    rows = result.fit.to_dict()["coefficients"]["table"]
+    return next(c["estimate"] for c in rows if c["term"] == "depth")
 
 
 def test_numeric_moderator_written_as_text_is_a_number(tmp_path: Path) -> None:
@@ -318,7 +331,7 @@ def test_numeric_moderator_written_as_text_is_a_number(tmp_path: Path) -> None:
     assert ";3,0\n" in semi and "\uff19" in semi
     (tmp_path / "studies.csv").write_text(semi, encoding="utf-8")
     result = run_project(p, progress=False, out=tmp_path / "o2")
-    assert result.fit.to_dict()["p"] == 2 and result.fit_rows == 5
+    assert result.fit.to_dict()["model"]["coefficient_count"] == 2 and result.fit_rows == 5
     np.testing.assert_allclose(_fit_depth(result), _fit_depth(reference), rtol=1e-10)
 
 
@@ -384,8 +397,9 @@ def test_output_that_is_an_input_is_refused_even_with_force(tmp_path: Path) -> N
     text = BASE.replace('[export]\n', '[export]\nname = "studies"\n')
     p = _project(tmp_path, text)
     before = (tmp_path / "studies.csv").read_bytes()
-    with pytest.raises(InputError, match=rf"line {_line_of(text, 'path = ')}: the output .*studies\.csv' is also "
-                                         r"an input \(studies\.path\)"):
+    with pytest.raises(InputError, match=r"The output .*studies\.csv' is also an input of this run "
+                                         rf"\(studies\.path, .*p\.toml, line {_line_of(text, 'path = ')}\); "
+                                         r".*refused even with force=True"):
         run_project(p, out=tmp_path, force=True, progress=False)
     assert (tmp_path / "studies.csv").read_bytes() == before
 
@@ -433,7 +447,7 @@ def test_category_labels_differing_only_in_white_space_are_one_level(tmp_path: P
     body = [f"{r},{m}" for r, m in zip(rows[1:], methods, strict=True)]
     (tmp_path / "studies.csv").write_text("\n".join([rows[0] + ",method", *body]) + "\n")
     result = run_project(p, progress=False)
-    terms = [c["term"] for c in result.fit.to_dict()["coefficients"]]
+    terms = [c["term"] for c in result.fit.to_dict()["coefficients"]["table"]]
     assert len(terms) == 2 and terms[0] == "intercept"  # one contrast: belt vs quadrat
     assert result.table["method"].tolist() == methods  # the output keeps the cells as written
 
@@ -459,7 +473,8 @@ def test_grid_file_that_is_not_a_grid_names_its_table(tmp_path: Path, capsys) ->
     text = BASE + ('[grids.sst]\npath = "sst.nc"\n'
                    '[[covariates]]\nname = "t_mean"\ngrid = "sst"\n')
     p = _project(tmp_path, text)
-    assert main(["run", str(p), "--no-progress"]) == 1  # a grid that cannot be decoded: the run fails
+    # a file that is not what it claims is bad input (2), as in envlink attach and envlink grid
+    assert main(["run", str(p), "--no-progress"]) == 2
     err = capsys.readouterr().err
     assert f"p.toml, line {_line_of(text, '[grids.sst]')} [grids.sst]: Cannot open the grid file" in err
     assert "bug" not in err

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from envlink.errors import InputError
+from envlink.errors import InputError, TableWarning
 from envlink.tables import (
     cell_text,
     check_output_path,
@@ -62,7 +62,7 @@ def test_require_columns_did_you_mean() -> None:
 def test_write_refuses_overwrite_without_force(tmp_path) -> None:
     p = tmp_path / "o.csv"
     write_table(pd.DataFrame({"a": [1]}), p)
-    with pytest.raises(InputError, match="--force"):
+    with pytest.raises(InputError, match=r"pass force=True to overwrite it"):
         write_table(pd.DataFrame({"a": [2]}), p, force=False)
     assert pd.read_csv(p)["a"].tolist() == [1]
 
@@ -79,10 +79,13 @@ def test_duplicate_column_names_are_an_error_not_renamed(tmp_path, suffix) -> No
         read_table(p, as_text=True)
 
 
-def test_blank_header_cells_are_not_duplicates(tmp_path) -> None:
+def test_blank_header_cells_are_named_not_duplicates(tmp_path) -> None:
     p = tmp_path / "t.csv"
     p.write_text("a,,\n1,,\n")
-    assert len(read_table(p, as_text=True).columns) == 3
+    with pytest.warns(TableWarning, match=r"columns 2, 3 have blank header cells; they are read as "
+                                          r"'column_2', 'column_3'"):
+        t = read_table(p, as_text=True)
+    assert t.columns.tolist() == ["a", "column_2", "column_3"]
 
 
 def test_empty_file_says_empty(tmp_path) -> None:
@@ -120,12 +123,10 @@ def test_write_to_a_folder_names_it(tmp_path) -> None:
 
 
 def test_write_failure_hides_temporary_name(tmp_path, monkeypatch) -> None:
-    import envlink.tables as tables
-
     def refuse(*args, **kwargs):
         raise PermissionError(13, "Permission denied", str(tmp_path / ".o.csv.x.part"))
 
-    monkeypatch.setattr(tables.pd.DataFrame, "to_csv", refuse)
+    monkeypatch.setattr(pd.DataFrame, "to_csv", refuse)
     with pytest.raises(InputError) as info:
         write_table(pd.DataFrame({"a": [1]}), tmp_path / "o.csv")
     msg = str(info.value)

@@ -1,53 +1,77 @@
-"""``envlink attach``: add one covariate from a grid to every row of a table."""
+"""``envlink attach``: add covariates from a grid to every row of a table (one or several in one read)."""
 
 from __future__ import annotations
 
 import argparse
 import sys
-from collections import Counter
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from envlink.commands.sites import add_locate_arguments, locate_kwargs
+from envlink.commands.grid import add_grid_arguments, grid_options
+from envlink.commands.sites import add_locate_arguments, input_files, locate_kwargs
 from envlink.errors import InputError
+from envlink.extract.rules import SPATIAL_RULES
+from envlink.extract.statistics import STATISTICS
+from envlink.extract.windows import TIME_WEIGHTS, WINDOWS
 
-__all__ = ["register", "run", "summary", "located_numbers"]
+__all__ = ["register", "run", "summary", "located_numbers", "covariate_specs"]
 
 _LOCATE_COLUMNS = ("site_lat", "site_lon", "period_start", "period_end")
 #: columns of 'envlink sites' that hold numbers (read from CSV text as float64)
 _LOCATED_NUMBERS = ("site_lat", "site_lon", "site_precision_km")
 
 DESCRIPTION = """\
-Attach one covariate from a gridded raster to every row of a table, over each row's
-own time window, and write the table with six new columns: NAME (the value, in
-canonical units), NAME_flags (QA codes separated by ';'), NAME_cell_lat,
+Attach covariates from a gridded raster to every row of a table, over each row's
+own time window, and write the table with six new columns per covariate: NAME (the
+value, in canonical units), NAME_flags (QA codes separated by ';'), NAME_cell_lat,
 NAME_cell_lon (the cell used), NAME_distance_km and NAME_coverage (fraction of the
 window's days with data). Every input row and column is kept as it was; a row that
 cannot get a value keeps an empty value and a flag saying why.
+
+One covariate: --name NAME [--stat STAT] [--window WINDOW]. Several from one read
+of the grid: repeat --covariate NAME=STAT or NAME=STAT@WINDOW instead (the other
+options apply to every covariate).
 
 TABLE should hold the columns that 'envlink sites' adds. If it does not, give the
 same column options as 'envlink sites' (--lat/--lon, --coords, --site with
 --gazetteer, --period or --start/--end) and the rows are located first."""
 
 EPILOG = """\
-statistics (--stat): mean, min, max, sum, std, quantile:Q, above:T, degree-days:T,
-  anomaly, mmm, dhw-max
-windows (--window): period, lag:N{D|M|Y}, before-start:N{D|M|Y}, after-end:N{D|M|Y},
-  around-mid:N{D|M|Y}
-spatial rules (--spatial): nearest, bilinear, nearest-valid:Dkm, buffer:Rkm, polygon
+Statistics, windows and spatial rules are listed in the --stat, --window and --spatial
+help above (docs/extract.md explains each). Names are case-insensitive, '-' and '_'
+are the same, a distance's 'km' is optional and numbers may be written in any decimal
+form: 'Nearest_Valid:25', 'nearest-valid:25km' and 'nearest-valid:25.0 KM' are one rule,
+recorded as nearest-valid:25km.
 
 examples:
   envlink attach located.csv --grid sst_monthly.nc --name sst_mean -o with_sst.csv
   envlink attach located.csv --grid sst_daily.nc --name dhw --stat dhw-max \\
       --mmm 28.7 --spatial nearest-valid:25km -o with_dhw.csv
+  envlink attach located.csv --grid sst_monthly.nc --covariate sst_mean=mean \\
+      --covariate sst_lag3=mean@lag:3M --covariate sst_max=max -o with_sst.csv
 
-Results are cached in $ENVLINK_CACHE (default ~/.cache/envlink); --no-cache skips it.
+Each cell's series read from a grid file is kept in the cell-series store,
+$ENVLINK_CACHE/cells (default ~/.cache/envlink/cells), so later runs on the same
+cells (any statistic, window or baseline) read the store instead of the grid;
+'envlink cache' lists and clears it; --no-cache reads the grid without it.
+--scheduler ADDRESS reads the cells on a Dask cluster (started with 'dask scheduler'
+and 'dask worker ADDRESS'; the values are those of a read on this machine); the
+workers need the grid's files and $ENVLINK_CACHE at the same paths (docs/scaling.md).
 Exit codes: 0 done (even with rows lacking a value), 2 bad input (including a grid
 file that cannot be opened, or an output path that cannot be written), 1 failure
-of the run (e.g. grid values that cannot be decoded while reading). A cache that
+of the run (e.g. grid values that cannot be decoded or read). A cache that
 cannot be written gives a warning, and the run goes on without it. See docs/extract.md."""
+
+
+class _HelpFormatter(argparse.RawDescriptionHelpFormatter):
+    """Option help wrapped at spaces only, so names such as 'dhw-max' stay whole."""
+
+    def _split_lines(self, text: str, width: int) -> list[str]:
+        import textwrap
+
+        return textwrap.wrap(" ".join(text.split()), width, break_on_hyphens=False)
 
 
 def register(subparsers: Any) -> None:
@@ -57,50 +81,81 @@ def register(subparsers: Any) -> None:
         help="attach a covariate from a grid to every row, over per-row windows",
         description=DESCRIPTION,
         epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        formatter_class=_HelpFormatter,
     )
     p.add_argument("table", metavar="TABLE", help="input table (.csv/.tsv/.txt, .parquet, .xlsx)")
     p.add_argument("--grid", metavar="FILE", required=True, help="the grid: netCDF, Zarr, GeoTIFF or a glob of files")
     p.add_argument("--var", metavar="NAME", help="the grid's variable (needed when the file holds several)")
-    p.add_argument("--name", metavar="COLUMN", required=True, help="name of the new covariate column")
-    p.add_argument("--stat", metavar="STAT", default="mean", help="window statistic (default mean)")
-    p.add_argument("--window", metavar="WINDOW", default="period", help="time window of each row (default period)")
+    add_grid_arguments(p)
+    p.add_argument("--name", metavar="COLUMN", help="name of the new covariate column (one covariate)")
+    p.add_argument("--stat", metavar="STAT",
+                   help=f"window statistic: {STATISTICS.help_text()} (default mean)")
+    p.add_argument("--window", metavar="WINDOW",
+                   help=f"time window of each row: {WINDOWS.help_text()} (default period)")
+    p.add_argument("--covariate", metavar="NAME=STAT[@WINDOW]", action="append",
+                   help="one covariate of several computed from one read of the grid, e.g. sst_lag3=mean@lag:3M "
+                        "(repeat it; instead of --name, --stat and --window)")
     p.add_argument("--baseline", metavar="YYYY-YYYY", help="climatology years for anomaly, mmm, dhw-max (default: the grid's span)")
     p.add_argument("--mmm", metavar="VALUE|FILE", help="dhw-max: the maximum monthly mean in degC, or a static climatology grid")
-    p.add_argument("--spatial", metavar="RULE", default="nearest", help="spatial rule (default nearest)")
-    p.add_argument("--time-weights", choices=("duration", "equal"), default="duration",
-                   help="how time steps count in the window (default duration)")
+    p.add_argument("--spatial", metavar="RULE", default="nearest",
+                   help=f"spatial rule: {SPATIAL_RULES.help_text()} (default nearest)")
+    p.add_argument("--time-weights", metavar="WEIGHTS", default="duration",
+                   help=f"how time steps count in the window: {TIME_WEIGHTS.help_text()} (default duration)")
     p.add_argument("--min-coverage", metavar="F", type=float, default=0.5,
                    help="least fraction of the window's days with data for a value (default 0.5)")
     p.add_argument("-o", "--output", metavar="OUT", required=True, help="output table (.csv, .tsv, .parquet, .xlsx)")
     p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
-    p.add_argument("--no-cache", action="store_true", help="do not read or write the result cache")
+    p.add_argument("--no-cache", action="store_true", help="do not read or write the cell-series store")
+    p.add_argument("--no-progress", action="store_true", help="hide the progress bars")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="read the grid's cells on a dask.distributed cluster (e.g. tcp://10.0.0.5:8786): "
+                        "each storage tile once, by one worker; the workers write the cell-series store, "
+                        "so $ENVLINK_CACHE should be a folder every worker sees (docs/scaling.md)")
     # The column and reading options of 'envlink sites', used when TABLE is not located yet.
     add_locate_arguments(p)
     p.set_defaults(handler=run)
 
 
-def summary(result: Any, name: str, out: str) -> str:
-    """The stderr summary: rows with a value, flagged, missing, and rows per flag."""
-    values = result[name].to_numpy(dtype=np.float64)
-    flags = result[f"{name}_flags"].fillna("").astype(str).tolist()
-    counts: Counter[str] = Counter()
-    for cell in flags:
-        if cell:
-            counts.update(cell.split(";"))
-    have = np.isfinite(values)
-    flagged = sum(1 for v, f in zip(have, flags, strict=True) if v and f)
-    lines = [
-        f"envlink attach: {len(result)} rows -> {out}",
-        f"  values   {int(have.sum()):>7}",
-        f"  flagged  {flagged:>7}  (value given, with QA flags)",
-        f"  missing  {int((~have).sum()):>7}",
-    ]
-    if counts:
-        width = max(len(f) for f in counts)
-        lines.append("  rows per flag:")
-        lines += [f"    {f:<{width}} {c:>7}" for f, c in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))]
+def summary(result: Any, name: str | list[str], out: str) -> str:
+    """The stderr summary: rows with a value, flagged, missing, and rows per flag (per covariate)."""
+    import pandas as pd
+
+    names = [name] if isinstance(name, str) else list(name)
+    lines = [f"envlink attach: {len(result)} rows -> {out}"]
+    for c in names:
+        values = result[c].to_numpy(dtype=np.float64)
+        flags = result[f"{c}_flags"].fillna("").astype(str)
+        have = np.isfinite(values)
+        flagged = int((have & (flags != "").to_numpy()).sum())
+        pad = "  " if len(names) == 1 else "    "
+        if len(names) > 1:
+            lines.append(f"  {c}:")
+        lines += [
+            f"{pad}values   {int(have.sum()):>7}",
+            f"{pad}flagged  {flagged:>7}  (value given, with QA flags)",
+            f"{pad}missing  {int((~have).sum()):>7}",
+        ]
+        codes = flags[flags != ""].str.split(";").explode()
+        counts = pd.Series(codes.to_numpy(), dtype=object).value_counts() if len(codes) else pd.Series([], dtype=int)
+        if len(counts):
+            width = max(len(str(f)) for f in counts.index)
+            lines.append(f"{pad}rows per flag:")
+            lines += [f"{pad}  {f:<{width}} {int(n):>7}"
+                      for f, n in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))]
+        land = int(counts.get("cell_on_land", 0))
+        if land:
+            lines.append(
+                f"{pad}{land} row(s) fall on a grid cell with no value at any time (land or masked); "
+                "--spatial nearest-valid:25km takes the nearest cell with data within 25 km instead."
+            )
+        origin = (result.attrs.get("envlink", {}).get(c) or {}).get("cells")
+        if origin and origin != "none":
+            lines.append(f"{pad}cells    {_ORIGIN_WORDS.get(origin, origin)}")
     return "\n".join(lines)
+
+
+_ORIGIN_WORDS = {"store": "from the cell-series store", "read": "read from the grid",
+                 "partly store": "partly from the cell-series store, partly read from the grid"}
 
 
 def _open(source: str, variable: str | None = None, **options: Any) -> Any:
@@ -156,14 +211,90 @@ def located_numbers(table: Any, where: str = "") -> Any:
     return out
 
 
+def _inputs(args: argparse.Namespace) -> dict[str, str]:
+    """Every file the command reads (never an output): TABLE, the grid's files, --mmm, the gazetteer."""
+    import glob
+
+    files = input_files(args)
+    for option, value in (("--grid", args.grid), ("--mmm", args.mmm)):
+        if value:
+            for path in glob.glob(value) if glob.has_magic(value) else [value]:
+                files[path] = option
+    return files
+
+
+def covariate_specs(args: argparse.Namespace) -> list[dict[str, Any]]:
+    """The covariates asked for: ``--name`` [``--stat``, ``--window``], or each ``--covariate``.
+
+    Every statistic and window is read through its registry here, so a misspelt name
+    is reported before any file is read.
+    """
+    from envlink.extract.covariates import SPEC_FORM, parse_covariates
+
+    if args.covariate:
+        single = [o for o, v in (("--name", args.name), ("--stat", args.stat), ("--window", args.window))
+                  if v is not None]
+        if single:
+            raise InputError(f"Give either --covariate NAME=STAT[@WINDOW] (repeated) or {single[0]} with --name, "
+                             f"not both; each --covariate is {SPEC_FORM}.")
+        for text in args.covariate:
+            name, eq, rest = text.partition("=")
+            if not eq or not name.strip() or not rest.partition("@")[0].strip():
+                raise InputError(f"--covariate {text!r}: write {SPEC_FORM}.")
+            stat, _, window = rest.partition("@")
+            for reg, value in ((STATISTICS, stat), (WINDOWS, window or "period")):
+                if not reg.accepts(value):
+                    raise InputError(f"--covariate {text!r}: {_refusal(reg, value)}")
+        covs = parse_covariates(args.covariate, {"stat": "mean", "window": "period"}, "attach")
+    elif args.name is not None:
+        covs = [{"name": args.name, "stat": "mean" if args.stat is None else args.stat,
+                 "window": "period" if args.window is None else args.window}]
+    else:
+        raise InputError("Name the covariate: --name COLUMN (with --stat and --window), or give "
+                         "--covariate NAME=STAT[@WINDOW] once per covariate.")
+    for c in covs:  # canonical labels, read through the registries
+        c["stat"], c["window"] = STATISTICS.parse(c["stat"]).label(), WINDOWS.parse(c["window"]).label()
+    return covs
+
+
+def _refusal(reg: Any, value: str) -> str:
+    """The registry's own refusal of ``value``, without the Python parameter's name."""
+    import re
+
+    try:
+        reg.parse(value)
+    except InputError as exc:
+        word = "the statistic" if reg is STATISTICS else "the window"
+        return re.sub(r"^The '\w+' parameter of [\w.]+", word, str(exc))
+    return ""
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink attach``; returns the exit code."""
-    from envlink.extract.attach import attach
-    from envlink.extract.cache import default_cache_dir
-    from envlink.tables import check_output_path, read_table_as_written, write_table
+    from envlink.extract.cluster_read import cluster_client
 
-    out = check_output_path(args.output, force=args.force)
+    # the vocabularies first: a misspelt name is reported before any file is read
+    covs = covariate_specs(args)
+    spatial = SPATIAL_RULES.parse(args.spatial)
+    with cluster_client(getattr(args, "scheduler", None)) as client:
+        return _attach(args, covs, spatial.label(), client)
+
+
+def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, client: Any) -> int:
+    """``envlink attach`` once the options are read (``client``: the cluster's, or None)."""
+    from envlink.extract.attach import attach_many
+    from envlink.extract.store import cache_root
+    from envlink.tables import (
+        check_cells_writable,
+        check_output_path,
+        read_table_as_written,
+        write_table,
+    )
+
+    progress = False if args.no_progress else None
+    out = check_output_path(args.output, force=args.force, inputs=_inputs(args))
     table = read_table_as_written(args.table)
+    check_cells_writable(table, out)
     if not all(c in table.columns for c in _LOCATE_COLUMNS):
         given = ("lat", "lon", "coords", "site", "gazetteer", "period", "start", "end")
         if not any(getattr(args, k) for k in given):
@@ -174,14 +305,32 @@ def run(args: argparse.Namespace) -> int:
             )
         from envlink.locate.sites import locate
 
-        table = locate(table, **locate_kwargs(args))
+        table = locate(table, progress=progress, **locate_kwargs(args))
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
-    grid = _open(args.grid, args.var)
-    result = attach(
-        table, grid, name=args.name, stat=args.stat, window=args.window, spatial=args.spatial,
-        baseline=args.baseline, mmm=_mmm(args.mmm), time_weights=args.time_weights,
-        min_coverage=args.min_coverage, cache_dir=None if args.no_cache else str(default_cache_dir()),
+    grid = _open(args.grid, args.var, **grid_options(args))
+    result = attach_many(
+        table, grid, covs, spatial=spatial, baseline=args.baseline, mmm=_mmm(args.mmm),
+        time_weights=args.time_weights, min_coverage=args.min_coverage,
+        cache_dir=None if args.no_cache else str(cache_root()), progress=progress, client=client,
     )
     write_table(result, out, force=True)
-    print(summary(result, args.name, str(out)), file=sys.stderr)
+    print(summary(result, [c["name"] for c in covs], str(out)), file=sys.stderr)
     return 0
+
+
+#: Python parameter -> option of ``envlink attach``, for messages (envlink.commands.options).
+#: ``lat``/``lon`` are left out: they also name open_grid's axis options, which this
+#: command does not offer (its --lat/--lon are table columns, checked before locate runs).
+PARAM_OPTIONS = {
+    "variable": "--var", "band_dates": "--band-dates", "units": "--units", "calendar": "--calendar",
+    "name": "--name", "covariates": "--covariate", "progress": {False: "--no-progress"},
+    "stat": "--stat", "window": "--window",
+    "baseline": "--baseline", "mmm": "--mmm", "spatial": "--spatial",
+    "time_weights": "--time-weights", "min_coverage": "--min-coverage", "force": "--force",
+    "coords": "--coords", "site": "--site", "gazetteer": "--gazetteer", "name_col": "--gazetteer-name",
+    "fuzzy_threshold": "--fuzzy-threshold", "fuzzy_margin": "--fuzzy-margin",
+    "period": "--period", "start": "--start", "end": "--end",
+    "order": {"dayfirst": "--dayfirst", "monthfirst": "--monthfirst"},
+    "plain_season_south": "--plain-season-south", "season_months": "--season-months",
+    "client": "--scheduler",
+}

@@ -11,7 +11,10 @@ from typing import Any
 
 from envlink.errors import InputError
 
-__all__ = ["register", "run", "add_locate_arguments", "locate_kwargs", "parse_season_months", "summary"]
+__all__ = [
+    "register", "run", "add_locate_arguments", "locate_kwargs", "input_files", "parse_season_months",
+    "summary", "LOCATE_OPTIONS", "PARAM_OPTIONS",
+]
 
 DESCRIPTION = """\
 Read a table of compiled studies and add validated site coordinates and sampling
@@ -45,7 +48,22 @@ def register(subparsers: Any) -> None:
                    help="output table; the format follows the extension (.csv, .tsv, .parquet, .xlsx)")
     add_locate_arguments(p)
     p.add_argument("--force", action="store_true", help="overwrite OUT if it exists")
+    p.add_argument("--no-progress", action="store_true", help="hide the progress bar (and its line in a log)")
     p.set_defaults(handler=run)
+
+
+#: The Python parameters of ``locate()`` / ``read_gazetteer()`` -> the options of
+#: :func:`add_locate_arguments` (shared with ``envlink attach``).
+LOCATE_OPTIONS = {
+    "lat": "--lat", "lon": "--lon", "coords": "--coords", "site": "--site",
+    "gazetteer": "--gazetteer", "name_col": "--gazetteer-name",
+    "fuzzy_threshold": "--fuzzy-threshold", "fuzzy_margin": "--fuzzy-margin",
+    "period": "--period", "start": "--start", "end": "--end",
+    "order": {"dayfirst": "--dayfirst", "monthfirst": "--monthfirst"},
+    "plain_season_south": "--plain-season-south", "season_months": "--season-months",
+}
+#: Python parameter -> option of ``envlink sites``, for messages (envlink.commands.options).
+PARAM_OPTIONS = {**LOCATE_OPTIONS, "force": "--force", "progress": {False: "--no-progress"}}
 
 
 def add_locate_arguments(p: argparse.ArgumentParser) -> None:
@@ -123,11 +141,13 @@ def parse_season_months(value: str | None) -> dict[str, list[int]] | None:
 
 def summary(located: Any, out: str) -> str:
     """The stderr summary: rows per status and rows per flag."""
+    from envlink.core.flags import split_flags
+
     status = Counter(located["locate_status"].tolist())
     flags: Counter[str] = Counter()
     for cell in located["locate_flags"].tolist():
         if cell:
-            flags.update(cell.split(";"))
+            flags.update(split_flags(cell))
     n = len(located)
     lines = [f"envlink sites: {n} row{'' if n == 1 else 's'} -> {out}"]
     lines += [f"  {s:<9} {status.get(s, 0):>7}" for s in ("ok", "flagged", "rejected")]
@@ -138,6 +158,17 @@ def summary(located: Any, out: str) -> str:
     if status.get("rejected") or status.get("flagged"):
         lines.append("  (locate_notes explains each flagged or rejected row)")
     return "\n".join(lines)
+
+
+def input_files(args: argparse.Namespace) -> dict[str, str]:
+    """The files a locating command reads (TABLE, the gazetteer, a season file): never outputs."""
+    files = {args.table: "TABLE"}
+    if getattr(args, "gazetteer", None):
+        files[args.gazetteer] = "--gazetteer"
+    season = getattr(args, "season_months", None)
+    if season and not season.lstrip().startswith("{"):
+        files[season] = "--season-months"
+    return files
 
 
 def locate_kwargs(args: argparse.Namespace) -> dict[str, Any]:
@@ -182,12 +213,18 @@ def locate_kwargs(args: argparse.Namespace) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     """Run ``envlink sites``; returns the exit code."""
     from envlink.locate.sites import locate
-    from envlink.tables import check_output_path, read_table_as_written, write_table
+    from envlink.tables import (
+        check_cells_writable,
+        check_output_path,
+        read_table_as_written,
+        write_table,
+    )
 
-    out = check_output_path(args.output, force=args.force)
+    out = check_output_path(args.output, force=args.force, inputs=input_files(args))
     options = locate_kwargs(args)
     table = read_table_as_written(args.table)
-    located = locate(table, **options)
+    check_cells_writable(table, out)
+    located = locate(table, progress=False if args.no_progress else None, **options)
     write_table(located, out, force=True)
     print(summary(located, str(out)), file=sys.stderr)
     return 0

@@ -5,25 +5,25 @@ in the grid's own calendar, so window arithmetic is plain subtraction whatever t
 calendar (``standard``, ``noleap``/``365_day``, ``all_leap``/``366_day``,
 ``360_day``, ``julian``).
 
-A date that the calendar lacks (the 31st of any month, or 29-30 February, in
-``360_day``; 29 February in ``noleap``) is clipped to the last day of that month in
-the calendar; callers flag it.
+A date that the calendar lacks (the 31st of any month in ``360_day``; 29 February
+in ``noleap``) moves to the last day of that month in the calendar (``missing="back"``,
+for the end of a period) or to the first day of the next month (``missing="forward"``,
+for its start), so a period never gains a day the reported dates left out; callers
+flag it.
 """
 
 from __future__ import annotations
 
+from typing import Literal
+
 import numpy as np
 
-__all__ = ["STANDARD", "month_lengths", "ymd_to_daynum", "daynum_to_ymd", "times_to_daynum"]
+from envlink.core.calendars import canonical_calendar
 
-STANDARD = frozenset({"standard", "gregorian", "proleptic_gregorian"})
+__all__ = ["month_lengths", "ymd_to_daynum", "daynum_to_ymd", "times_to_daynum"]
+
 _NOLEAP = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31])
 _ALLLEAP = np.array([31, 29, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31])
-
-
-def _canon(calendar: str) -> str:
-    c = (calendar or "standard").lower()
-    return {"365_day": "noleap", "366_day": "all_leap", "none": "standard"}.get(c, c)
 
 
 def month_lengths(year: np.ndarray, month: np.ndarray, calendar: str) -> np.ndarray:
@@ -36,7 +36,7 @@ def month_lengths(year: np.ndarray, month: np.ndarray, calendar: str) -> np.ndar
     >>> month_lengths(np.array([2000]), np.array([1]), "360_day").tolist()
     [30]
     """
-    cal = _canon(calendar)
+    cal = canonical_calendar(calendar)
     y = np.asarray(year, dtype=np.int64)
     m = np.asarray(month, dtype=np.int64)
     if cal == "360_day":
@@ -53,17 +53,23 @@ def month_lengths(year: np.ndarray, month: np.ndarray, calendar: str) -> np.ndar
 
 
 def ymd_to_daynum(
-    year: np.ndarray, month: np.ndarray, day: np.ndarray, calendar: str
+    year: np.ndarray, month: np.ndarray, day: np.ndarray, calendar: str,
+    missing: Literal["back", "forward"] = "back",
 ) -> tuple[np.ndarray, np.ndarray]:
     """Day numbers (days since 1970-01-01 in the calendar) and a "clipped" mask.
+
+    A day the calendar lacks becomes the month's last day (``missing="back"``) or the
+    next month's first day (``missing="forward"``); the mask marks it.
 
     Examples
     --------
     >>> d, clipped = ymd_to_daynum(np.array([1970]), np.array([1]), np.array([31]), "360_day")
     >>> d.tolist(), clipped.tolist()
     ([29.0], [True])
+    >>> ymd_to_daynum(np.array([1970]), np.array([1]), np.array([31]), "360_day", "forward")[0].tolist()
+    [30.0]
     """
-    cal = _canon(calendar)
+    cal = canonical_calendar(calendar)
     y = np.asarray(year, dtype=np.int64)
     m = np.asarray(month, dtype=np.int64)
     d = np.asarray(day, dtype=np.int64)
@@ -85,6 +91,8 @@ def ymd_to_daynum(
         # proleptic Gregorian through numpy (CF "standard" equals it after 1582-10-15)
         months = (y - 1970) * 12 + (m - 1)
         out = months.astype("datetime64[M]").astype("datetime64[D]").astype(np.int64) + d - 1
+    if missing == "forward":
+        out = out + clipped  # the day after the month's last day
     return np.asarray(out, dtype=np.float64), np.asarray(clipped)
 
 
@@ -96,7 +104,7 @@ def daynum_to_ymd(daynum: np.ndarray, calendar: str) -> tuple[np.ndarray, np.nda
     >>> [a.tolist() for a in daynum_to_ymd(np.array([59.0]), "noleap")]
     [[1970], [3], [1]]
     """
-    cal = _canon(calendar)
+    cal = canonical_calendar(calendar)
     n = np.floor(np.asarray(daynum, dtype=np.float64)).astype(np.int64)
     if cal == "360_day":
         y, r = np.divmod(n, 360)

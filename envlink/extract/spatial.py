@@ -27,9 +27,9 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
+from envlink.core.earth import EARTH_RADIUS_KM
 from envlink.errors import InputError
 from envlink.geo import (
-    EARTH_RADIUS_KM,
     build_kdtree,
     cell_area_km2,
     cell_edges,
@@ -46,8 +46,6 @@ def _cat(xs: list[np.ndarray], dt: type) -> np.ndarray:
 
 
 __all__ = ["GridGeometry", "bilinear_cells", "polygon_cells"]
-
-_KM_PER_DEG = np.pi * EARTH_RADIUS_KM / 180.0
 
 
 def _locate_1d(edges: np.ndarray, x: np.ndarray) -> np.ndarray:

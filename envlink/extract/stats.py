@@ -1,11 +1,12 @@
-"""Window statistics over many series at once: cumulative sums, gathers, heat stress.
+"""Window kernels over many series at once: cumulative sums, gathers, heat stress.
 
-Every function takes a block of series ``S`` (sources × time, float64, NaN where no
+The pure array work behind the statistics of :mod:`envlink.extract.statistics`.
+Every kernel reads a block of series ``S`` (sources × time, float64, NaN where no
 data), the grid's time steps (:class:`Steps`) and, per row, the source it reads and
 its window as a :class:`Spans` (first / last overlapping step and the overlap of the
-two edge steps, in days).
+two edge steps, in days), gathered in a :class:`WindowData`.
 
-Weighting (DESIGN.md §4): with ``duration`` weights a step counts by the number of
+Weighting (docs/extract.md, "Time weights"): with ``duration`` weights a step counts by the number of
 days of its cell inside the window; with ``equal`` weights every overlapping step
 counts once. Means, std (population form, ddof = 0) and fractions above a threshold
 use these weights; ``sum`` adds each step times the fraction of its cell inside the
@@ -15,8 +16,11 @@ window (1 for every step under ``equal``); ``degree-days`` integrate
 data once. Coverage is always the fraction of the window's days with data.
 
 Window means, sums, fractions and degree-days come from cumulative sums over each
-series (two look-ups per row); min / max / quantile / DHW maxima gather each row's
-steps with one fancy index per window length.
+series (two look-ups per row), or, where the windows are short against the series (a
+few months of a 30-year monthly series), from each window's own steps gathered and
+added (work in proportion to the windows, not the series); min / max / quantile / DHW
+maxima gather each row's steps with one fancy index per window length. Baseline
+climatologies and heat stress: :mod:`envlink.extract.climate`.
 """
 
 from __future__ import annotations
@@ -24,6 +28,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -33,23 +38,18 @@ __all__ = [
     "Steps",
     "Spans",
     "row_spans",
+    "WindowData",
+    "window_data",
     "window_stat",
-    "climatology",
-    "monthly_climatology",
-    "dhw_series",
-    "DHW_DAYS",
-    "HOTSPOT_MIN",
-    "HOTSPOT_TOLERANCE",
+    "window_mean",
+    "window_above",
+    "window_std",
+    "window_sum",
+    "window_degree_days",
+    "window_min",
+    "window_max",
+    "window_quantile",
 ]
-
-#: Trailing window of degree heating weeks, days (12 weeks; Liu et al. 2014).
-DHW_DAYS = 84
-#: HotSpots below this (°C above the MMM) do not accumulate (Liu et al. 2014).
-HOTSPOT_MIN = 1.0
-#: Float round-off allowance on the HotSpot comparison, °C (float32 storage of SST
-#: makes 29.3 − 28.3 come out as 0.9999992).
-HOTSPOT_TOLERANCE = 1e-5
-
 
 @dataclass
 class Steps:
@@ -117,15 +117,83 @@ def row_spans(steps: Steps, ws: np.ndarray, we: np.ndarray) -> Spans:
     return Spans(a, np.where(has, b, a), np.where(has, ov0, 0.0), np.where(has, ov1, 0.0), we - ws, has)
 
 
+def _short_windows(q: np.ndarray, sp: Spans) -> bool:
+    """Whether the rows' windows hold few steps against the series' length: then each
+    window's steps are gathered and added (work ∝ the windows), else cumulative sums over
+    whole series answer every window with two look-ups (work ∝ the series)."""
+    steps = int(np.sum(np.where(sp.has, sp.i1 - sp.i0 + 1, 0)))
+    return 4 * steps < q.shape[0] * q.shape[1]
+
+
 def _wsum(q: np.ndarray, b: np.ndarray, src: np.ndarray, sp: Spans, e0: np.ndarray, e1: np.ndarray) -> np.ndarray:
-    """Σ w q over each row's window: interior steps weighted ``b``, edges ``e0``/``e1``."""
-    cum = np.zeros((q.shape[0], q.shape[1] + 1), dtype=np.float64)
-    np.cumsum(q * b, axis=1, out=cum[:, 1:])
+    """Σ w q over each row's window: interior steps weighted ``b``, edges ``e0``/``e1``.
+
+    Examples
+    --------
+    >>> st = Steps(np.array([0., 31., 59.]), np.array([31., 59., 90.]), *(np.ones(3, int),) * 3)
+    >>> sp = row_spans(st, np.array([10.0]), np.array([70.0]))  # 21 + 28 + 11 days
+    >>> _wsum(np.array([[1.0, 2.0, 3.0]]), st.length[None, :], np.array([0]), sp, sp.ov0, sp.ov1).tolist()
+    [110.0]
+    """
     i0, i1 = sp.i0, sp.i1
-    inner = np.where(i1 > i0 + 1, cum[src, i1] - cum[src, np.minimum(i0 + 1, i1)], 0.0)
     first = e0 * q[src, i0]
     last = np.where(i1 > i0, e1 * q[src, i1], 0.0)
+    if _short_windows(q, sp):
+        inner = _inner_gathered(q, b, src, sp)
+    else:
+        cum = np.zeros((q.shape[0], q.shape[1] + 1), dtype=np.float64)
+        np.cumsum(q * b, axis=1, out=cum[:, 1:])
+        inner = np.where(i1 > i0 + 1, cum[src, i1] - cum[src, np.minimum(i0 + 1, i1)], 0.0)
     return np.where(sp.has, inner + first + last, 0.0)
+
+
+def _inner_gathered(q: np.ndarray, b: np.ndarray, src: np.ndarray, sp: Spans,
+                    f: Callable[[np.ndarray], np.ndarray] | None = None) -> np.ndarray:
+    """Σ b q over the steps strictly inside each row's window, gathered in one flat pass
+    (in chunks of rows of at most 4 million steps); ``f`` is applied to the gathered values
+    of ``q`` first.
+
+    Examples
+    --------
+    >>> st = Steps(np.arange(4.0), np.arange(1.0, 5.0), *(np.ones(4, int),) * 3)
+    >>> sp = row_spans(st, np.array([0.0, 1.0]), np.array([4.0, 2.0]))
+    >>> _inner_gathered(np.array([[1.0, 2.0, 3.0, 4.0]]), st.length[None, :], np.array([0, 0]), sp).tolist()
+    [5.0, 0.0]
+    """
+    out = np.zeros(src.size)
+    count = np.where(sp.has, sp.i1 - sp.i0 - 1, 0)
+    rows = np.nonzero(count > 0)[0]
+    total = np.cumsum(count[rows])
+    k = 0
+    while k < rows.size:
+        end = int(np.searchsorted(total, (total[k - 1] if k else 0) + 4_000_000, side="right"))
+        r = rows[k : max(end, k + 1)]
+        n = count[r]
+        t = _ranges(sp.i0[r] + 1, n)
+        s_rep = np.repeat(src[r], n)
+        vals = q[s_rep, t]
+        weights = b[0, t] if b.shape[0] == 1 else b[s_rep, t]
+        prod = (vals if f is None else f(vals)) * weights
+        starts = np.concatenate([[0], np.cumsum(n)[:-1]])
+        out[r] = np.add.reduceat(prod, starts)
+        k = max(end, k + 1)
+    return out
+
+
+def _ranges(starts: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Concatenated ``arange(s, s + c)`` for each (start, count), without a Python loop.
+
+    Examples
+    --------
+    >>> _ranges(np.array([5, 0, 9]), np.array([2, 0, 3])).tolist()
+    [5, 6, 9, 10, 11]
+    """
+    counts = np.asarray(counts, dtype=np.int64)
+    total = int(counts.sum())
+    if total == 0:
+        return np.array([], dtype=np.int64)
+    first = np.cumsum(counts) - counts  # position of each range's first element
+    return np.repeat(np.asarray(starts, dtype=np.int64) - first, counts) + np.arange(total, dtype=np.int64)
 
 
 def _gather(S: np.ndarray, src: np.ndarray, sp: Spans, func: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
@@ -144,18 +212,187 @@ def _gather(S: np.ndarray, src: np.ndarray, sp: Spans, func: Callable[[np.ndarra
     return out
 
 
+@dataclass
+class WindowData:
+    """A block of series and each row's window, with the weighting terms every kernel shares.
+
+    Built by :func:`window_data`; the kernels below (``window_mean`` ...) read it.
+    """
+
+    S: np.ndarray
+    steps: Steps
+    src: np.ndarray
+    sp: Spans
+    weights: str
+    b: np.ndarray
+    e0: np.ndarray
+    e1: np.ndarray
+
+    @cached_property
+    def valid(self) -> np.ndarray:
+        """Steps with data (the whole block)."""
+        return np.isfinite(self.S)
+
+    @cached_property
+    def v0(self) -> np.ndarray:
+        """The values, 0 where no data (the whole block)."""
+        return np.where(self.valid, self.S, 0.0)
+
+    @cached_property
+    def vf(self) -> np.ndarray:
+        """1.0 where data, else 0.0 (the whole block)."""
+        return self.valid.astype(np.float64)
+
+    @cached_property
+    def days_with_data(self) -> np.ndarray:
+        """Days of each row's window with data."""
+        length = self.steps.length[None, :]
+        return _wsum_of(self.S, _has_data, length, self.src, self.sp, self.sp.ov0, self.sp.ov1)
+
+    @cached_property
+    def cov(self) -> np.ndarray:
+        """Fraction of each row's window days with data."""
+        return self.days_with_data / np.where(self.sp.days > 0, self.sp.days, np.nan)
+
+    def wsum(self, q: np.ndarray) -> np.ndarray:
+        """Σ w q over each row's window, with this block's time weights."""
+        return _wsum(q, self.b, self.src, self.sp, self.e0, self.e1)
+
+    def wsum_of(self, f: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
+        """Σ w f(v) over each row's window (``f`` of the values, NaN where no data), computed
+        only on the windows' steps where they are short."""
+        return _wsum_of(self.S, f, self.b, self.src, self.sp, self.e0, self.e1)
+
+    def weight_total(self) -> np.ndarray:
+        """Σ w over the steps with data (NaN where none)."""
+        W = self.days_with_data if self.weights == "duration" else self.wsum_of(_has_data)
+        return np.where(W > 0, W, np.nan)
+
+
+def _has_data(v: np.ndarray) -> np.ndarray:
+    return np.isfinite(v).astype(np.float64)
+
+
+def _value_or_zero(v: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(v), v, 0.0)
+
+
+def _wsum_of(S: np.ndarray, f: Callable[[np.ndarray], np.ndarray], b: np.ndarray, src: np.ndarray, sp: Spans,
+             e0: np.ndarray, e1: np.ndarray) -> np.ndarray:
+    """:func:`_wsum` of ``f(S)``, with ``f`` applied only to the gathered steps of short windows."""
+    if not _short_windows(S, sp):
+        return _wsum(f(S), b, src, sp, e0, e1)
+    i0, i1 = sp.i0, sp.i1
+    first = e0 * f(S[src, i0])
+    last = np.where(i1 > i0, e1 * f(S[src, i1]), 0.0)
+    inner = _inner_gathered(S, b, src, sp, f)
+    return np.where(sp.has, inner + first + last, 0.0)
+
+
+def window_data(S: np.ndarray, steps: Steps, src: np.ndarray, sp: Spans, weights: str = "duration") -> WindowData:
+    """The shared terms of the window kernels for series ``S`` (see the module; each is
+    computed when a kernel first asks for it)."""
+    length = steps.length[None, :]
+    if weights == "duration":
+        b, e0, e1 = length, sp.ov0, sp.ov1
+    else:
+        b, e0, e1 = np.ones_like(length), np.ones_like(sp.ov0), np.ones_like(sp.ov1)
+    return WindowData(S, steps, src, sp, weights, b, e0, e1)
+
+
+def window_mean(w: WindowData, arg: object = None) -> np.ndarray:
+    """Weighted mean over the steps with data."""
+    return w.wsum_of(_value_or_zero) / w.weight_total()
+
+
+def window_above(w: WindowData, threshold: object) -> np.ndarray:
+    """Weighted fraction of the time with data above ``threshold``."""
+    t = float(threshold or 0.0)  # type: ignore[arg-type]
+    return w.wsum_of(lambda v: ((v > t) & np.isfinite(v)).astype(np.float64)) / w.weight_total()
+
+
+def window_std(w: WindowData, arg: object = None) -> np.ndarray:
+    """Weighted population standard deviation (ddof = 0)."""
+    S, src, sp, b = w.S, w.src, w.sp, w.b
+    W = w.weight_total()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        c = np.nanmean(S, axis=1, keepdims=True)
+    d = np.where(w.valid, S - np.nan_to_num(c), 0.0)
+    m1 = w.wsum(d) / W
+    m2 = w.wsum(d * d) / W
+    var = m2 - m1 * m1
+    # Differences of cumulative sums carry round-off of about eps times the running
+    # total of d² (weighted) up to the window's last step (sums gathered over the
+    # window itself, about eps times its own total); a variance below that is zero (a
+    # window with one value, or equal values, has std 0 exactly, not ~1e-8 from the
+    # square root).
+    dd = m2 * W if _short_windows(d, sp) else np.cumsum(d * d * b, axis=1)[src, sp.i1]
+    floor = 64.0 * np.finfo(np.float64).eps * (dd + m2 * W) / W
+    ones = np.ones_like(w.steps.length[None, :])
+    nvalid = _wsum_of(S, _has_data, ones, src, sp, np.ones_like(sp.ov0), np.ones_like(sp.ov1))
+    var = np.where((var <= floor) | (nvalid <= 1), 0.0, var)
+    return np.sqrt(var)
+
+
+def window_sum(w: WindowData, arg: object = None) -> np.ndarray:
+    """Σ f·v, f the fraction of each step's cell inside the window (1 under ``equal``)."""
+    sp, steps = w.sp, w.steps
+    frac0 = sp.ov0 / steps.length[sp.i0]
+    frac1 = sp.ov1 / steps.length[sp.i1]
+    if w.weights == "equal":
+        frac0, frac1 = np.ones_like(frac0), np.ones_like(frac1)
+    val = _wsum_of(w.S, _value_or_zero, np.ones_like(steps.length[None, :]), w.src, sp, frac0, frac1)
+    return np.where(w.cov > 0, val, np.nan)
+
+
+def window_degree_days(w: WindowData, threshold: object) -> np.ndarray:
+    """Σ days·max(v − T, 0) over the window's days (whole steps under ``equal``)."""
+    sp, steps = w.sp, w.steps
+    t = float(threshold or 0.0)  # type: ignore[arg-type]
+
+    def excess(v: np.ndarray) -> np.ndarray:
+        return np.where(np.isfinite(v), np.maximum(v - t, 0.0), 0.0)
+
+    length = steps.length[None, :]
+    if w.weights == "duration":
+        val = _wsum_of(w.S, excess, length, w.src, sp, sp.ov0, sp.ov1)
+    else:
+        val = _wsum_of(w.S, excess, length, w.src, sp, steps.length[sp.i0], steps.length[sp.i1])
+    return np.where(w.cov > 0, val, np.nan)
+
+
+def window_min(w: WindowData, arg: object = None) -> np.ndarray:
+    """Least value over the overlapping steps with data."""
+    return _gather(w.S, w.src, w.sp, lambda a: np.nanmin(a, axis=1))
+
+
+def window_max(w: WindowData, arg: object = None) -> np.ndarray:
+    """Greatest value over the overlapping steps with data."""
+    return _gather(w.S, w.src, w.sp, lambda a: np.nanmax(a, axis=1))
+
+
+def window_quantile(w: WindowData, q: object) -> np.ndarray:
+    """Linear-interpolation quantile ``q`` of the overlapping steps with data (unweighted)."""
+    qq = float(q or 0.0)  # type: ignore[arg-type]
+    return _gather(w.S, w.src, w.sp, lambda a: np.nanquantile(a, qq, axis=1))
+
+
+#: A window kernel: (window data, argument) -> one value per row.
+Kernel = Callable[[WindowData, object], np.ndarray]
+
+
 def window_stat(
     S: np.ndarray,
     steps: Steps,
     src: np.ndarray,
     sp: Spans,
-    kind: str,
+    kernel: Kernel,
+    arg: object = None,
     *,
     weights: str = "duration",
-    q: float | None = None,
-    threshold: float | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Value and coverage of one statistic for every row.
+    """Value and coverage of one window kernel for every row.
 
     Parameters
     ----------
@@ -166,12 +403,12 @@ def window_stat(
         Source (row of ``S``) of each row.
     sp : Spans
         Each row's window over the steps.
-    kind : str
-        ``mean``, ``min``, ``max``, ``sum``, ``std``, ``quantile``, ``above``,
-        ``degree-days`` (``anomaly`` and ``dhw-max`` pass prepared series as ``S``
-        with kind ``mean`` / ``max``).
+    kernel : callable
+        One of the kernels of this module (``window_mean``, ``window_quantile`` ...);
+        the statistics of :mod:`envlink.extract.statistics` name theirs.
+    arg : object, optional
+        The kernel's argument (a quantile, a threshold).
     weights : {"duration", "equal"}
-    q, threshold : float, optional
 
     Returns
     -------
@@ -183,136 +420,12 @@ def window_stat(
     >>> st = Steps(np.array([0., 31.]), np.array([31., 59.]), *(np.ones(2, int),) * 3)
     >>> S = np.array([[10.0, 20.0]])
     >>> sp = row_spans(st, np.array([0.0]), np.array([59.0]))
-    >>> v, c = window_stat(S, st, np.array([0]), sp, "mean")
+    >>> v, c = window_stat(S, st, np.array([0]), sp, window_mean)
     >>> round(float(v[0]), 6), float(c[0])  # (31*10 + 28*20) / 59
     (14.745763, 1.0)
     """
-    valid = np.isfinite(S)
-    v0 = np.where(valid, S, 0.0)
-    vf = valid.astype(np.float64)
-    length = steps.length[None, :]
-    days_with_data = _wsum(vf, length, src, sp, sp.ov0, sp.ov1)
-    cov = days_with_data / np.where(sp.days > 0, sp.days, np.nan)
-    if weights == "duration":
-        b, e0, e1 = length, sp.ov0, sp.ov1
-    else:
-        b, e0, e1 = np.ones_like(length), np.ones_like(sp.ov0), np.ones_like(sp.ov1)
+    w = window_data(S, steps, src, sp, weights)
     with np.errstate(invalid="ignore", divide="ignore"):
-        if kind in ("mean", "std", "above"):
-            W = days_with_data if weights == "duration" else _wsum(vf, b, src, sp, e0, e1)
-            W = np.where(W > 0, W, np.nan)
-            if kind == "mean":
-                val = _wsum(v0, b, src, sp, e0, e1) / W
-            elif kind == "above":
-                val = _wsum((v0 > float(threshold or 0.0)) & valid, b, src, sp, e0, e1) / W
-            else:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore", RuntimeWarning)
-                    c = np.nanmean(S, axis=1, keepdims=True)
-                d = np.where(valid, S - np.nan_to_num(c), 0.0)
-                m1 = _wsum(d, b, src, sp, e0, e1) / W
-                m2 = _wsum(d * d, b, src, sp, e0, e1) / W
-                var = m2 - m1 * m1
-                # Differences of cumulative sums carry round-off of about eps times
-                # the running total of d² (weighted) up to the window's last step;
-                # a variance below that is zero (a window with one value, or equal
-                # values, has std 0 exactly, not ~1e-8 from the square root).
-                dd = np.cumsum(d * d * b, axis=1)[src, sp.i1]
-                floor = 64.0 * np.finfo(np.float64).eps * (dd + m2 * W) / W
-                nvalid = _wsum(vf, np.ones_like(length), src, sp, np.ones_like(sp.ov0), np.ones_like(sp.ov1))
-                var = np.where((var <= floor) | (nvalid <= 1), 0.0, var)
-                val = np.sqrt(var)
-        elif kind == "sum":
-            frac0 = sp.ov0 / steps.length[sp.i0]
-            frac1 = sp.ov1 / steps.length[sp.i1]
-            if weights == "equal":
-                frac0, frac1 = np.ones_like(frac0), np.ones_like(frac1)
-            val = _wsum(v0, np.ones_like(length), src, sp, frac0, frac1)
-            val = np.where(cov > 0, val, np.nan)
-        elif kind == "degree-days":
-            excess = np.where(valid, np.maximum(S - float(threshold or 0.0), 0.0), 0.0)
-            if weights == "duration":
-                val = _wsum(excess, length, src, sp, sp.ov0, sp.ov1)
-            else:
-                val = _wsum(excess, length, src, sp, steps.length[sp.i0], steps.length[sp.i1])
-            val = np.where(cov > 0, val, np.nan)
-        elif kind == "min":
-            val = _gather(S, src, sp, lambda a: np.nanmin(a, axis=1))
-        elif kind == "max":
-            val = _gather(S, src, sp, lambda a: np.nanmax(a, axis=1))
-        elif kind == "quantile":
-            qq = float(q or 0.0)
-            val = _gather(S, src, sp, lambda a: np.nanquantile(a, qq, axis=1))
-        else:
-            raise ValueError(f"unknown statistic {kind!r}")
-    cov = np.where(sp.has, np.nan_to_num(cov), 0.0)
+        val = kernel(w, arg)
+    cov = np.where(sp.has, np.nan_to_num(w.cov), 0.0)
     return np.asarray(val, dtype=np.float64), cov
-
-
-def climatology(S: np.ndarray, keys: np.ndarray, nkeys: int, in_base: np.ndarray) -> np.ndarray:
-    """Mean of each key (calendar month or day) over the baseline steps, (sources, nkeys).
-
-    Examples
-    --------
-    >>> S = np.array([[1.0, 2.0, 3.0, np.nan]])
-    >>> climatology(S, np.array([0, 1, 0, 1]), 2, np.ones(4, bool)).tolist()
-    [[2.0, 2.0]]
-    """
-    from scipy import sparse
-
-    t = np.nonzero(in_base)[0]
-    K = sparse.csr_matrix((np.ones(t.size), (t, keys[t])), shape=(S.shape[1], nkeys))
-    valid = np.isfinite(S)
-    num = np.asarray(K.T @ np.where(valid, S, 0.0).T).T
-    cnt = np.asarray(K.T @ valid.astype(np.float64).T).T
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(cnt > 0, num / cnt, np.nan)
-
-
-def monthly_climatology(S: np.ndarray, steps: Steps, in_base: np.ndarray) -> np.ndarray:
-    """Mean over the baseline years of each calendar month's mean, (sources, 12).
-
-    Monthly means are duration-weighted over the steps of each (year, month) with data.
-    """
-    from scipy import sparse
-
-    t = np.nonzero(in_base)[0]
-    if t.size == 0:
-        return np.full((S.shape[0], 12), np.nan)
-    y0 = int(steps.year[t].min())
-    ym = (steps.year[t] - y0) * 12 + steps.month[t] - 1
-    nym = int(ym.max()) + 1
-    w = steps.length[t]
-    K = sparse.csr_matrix((w, (t, ym)), shape=(S.shape[1], nym))
-    valid = np.isfinite(S)
-    num = np.asarray(K.T @ np.where(valid, S, 0.0).T).T
-    cnt = np.asarray(K.T @ valid.astype(np.float64).T).T
-    with np.errstate(invalid="ignore", divide="ignore"):
-        monthly = np.where(cnt > 0, num / cnt, np.nan)
-    pad = (-nym) % 12
-    monthly = np.concatenate([monthly, np.full((S.shape[0], pad), np.nan)], axis=1)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        return np.nanmean(monthly.reshape(S.shape[0], -1, 12), axis=1)
-
-
-def dhw_series(S: np.ndarray, mmm: np.ndarray) -> np.ndarray:
-    """Degree heating weeks (°C-weeks) of daily series against each source's MMM.
-
-    HotSpot = SST − MMM; HotSpots of at least 1 °C accumulate over the trailing 84
-    days (the day itself and the 83 before), divided by 7 (Liu et al. 2014; Skirving
-    et al. 2020). Days without data add nothing and have no DHW value themselves.
-
-    Examples
-    --------
-    >>> S = np.array([[29.0, 28.8, 30.0]])  # MMM 28: HotSpots 1.0, 0.8, 2.0
-    >>> (dhw_series(S, np.array([28.0])) * 7).round(9).tolist()
-    [[1.0, 1.0, 3.0]]
-    """
-    hs = S - np.asarray(mmm, dtype=np.float64)[:, None]
-    acc = np.where(np.isfinite(hs) & (hs >= HOTSPOT_MIN - HOTSPOT_TOLERANCE), hs, 0.0)
-    cum = np.zeros((S.shape[0], S.shape[1] + 1))
-    np.cumsum(acc, axis=1, out=cum[:, 1:])
-    t = np.arange(S.shape[1])
-    dhw = (cum[:, t + 1] - cum[:, np.maximum(t + 1 - DHW_DAYS, 0)]) / 7.0
-    return np.where(np.isfinite(S), dhw, np.nan)

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import xarray as xr
 
-from envlink._util import did_you_mean
+from envlink.core.util import did_you_mean
 from envlink.errors import InputError
 
 __all__ = ["AxisMatch", "find_axis", "candidate_coords", "LOOKED_FOR"]
@@ -152,12 +152,12 @@ def missing_axis_error(ds: xr.Dataset, variable: str, axis: str) -> InputError:
     """The error for an axis that could not be found, saying how to name it."""
     cands = [str(c) for c in candidate_coords(ds, variable)]
     extra = (
-        " Or open a static grid (no time axis) with time=False (--static on the command line)."
+        " Or open a static grid (no time axis) with time=False."
         if axis == "time"
         else ""
     )
     return InputError(
         f"No {axis} axis found for {variable!r} (dims {tuple(map(str, ds[variable].dims))}; "
         f"coordinates looked at: {', '.join(cands) or 'none'}). Looked for {LOOKED_FOR[axis]}. "
-        f"Name the axis explicitly with {axis}='NAME' (--{axis} NAME on the command line).{extra}"
+        f"Name the axis explicitly with {axis}='NAME'.{extra}"
     )

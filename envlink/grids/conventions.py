@@ -10,9 +10,6 @@ unpacking, as both sections require; a valid range whose type is the unpacked
 
 from __future__ import annotations
 
-import os
-import sys
-import types
 import warnings
 from collections.abc import Mapping
 from typing import Any
@@ -20,7 +17,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from envlink.errors import EnvlinkWarning, GridError
+from envlink.errors import GridError, GridWarning, ValidRangeWarning, user_stacklevel
 
 __all__ = [
     "GridWarning",
@@ -31,25 +28,6 @@ __all__ = [
     "wrap_longitude",
     "covers_circle",
 ]
-
-
-def user_stacklevel() -> int:
-    """The ``stacklevel`` that points a warning at the first caller outside envlink."""
-    package_dir = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    frame: types.FrameType | None = sys._getframe(1)
-    level = 1
-    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package_dir):
-        frame = frame.f_back
-        level += 1
-    return level
-
-
-class GridWarning(EnvlinkWarning):
-    """Something about a grid that may make its numbers wrong or its reading slow."""
-
-
-class ValidRangeWarning(GridWarning):
-    """A valid range that looks stated in unpacked units."""
 
 
 def _num(value: Any) -> str:
@@ -229,7 +207,7 @@ def check_latitudes(lat: np.ndarray) -> None:
         raise GridError(
             f"The latitude coordinate runs {finite.min():g}..{finite.max():g}, beyond -90..90 "
             "degrees: it may be a projected y axis in metres, or latitude and longitude may be "
-            "swapped. Name the right axis with lat='NAME' (--lat NAME on the command line)."
+            "swapped. Name the right axis with lat='NAME'."
         )
 
 

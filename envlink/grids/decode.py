@@ -18,7 +18,7 @@ import cftime
 import numpy as np
 import xarray as xr
 
-from envlink._util import did_you_mean
+from envlink.core.util import did_you_mean
 from envlink.errors import GridError, InputError
 from envlink.grids.axes import find_axis, missing_axis_error
 from envlink.grids.conventions import (
@@ -36,9 +36,9 @@ from envlink.grids.timeaxis import (
     normalise_calendar,
     to_output_times,
 )
-from envlink.grids.units import canonical_conversion
+from envlink.grids.units import convert_units, step_days, unit_conversion
 
-__all__ = ["DecodeOptions", "normalise_dataset", "choose_variable"]
+__all__ = ["DecodeOptions", "ReadRecipe", "normalise_dataset", "choose_variable", "decode_time_alone"]
 
 _KEEP_ATTRS = ("standard_name", "long_name", "cell_methods")
 
@@ -82,7 +82,7 @@ def choose_variable(ds: xr.Dataset, variable: str | None, label: str) -> str:
         raise InputError(f"{label} holds no gridded variable (variables: {', '.join(names) or 'none'}).")
     raise InputError(
         f"{label} holds several gridded variables: {', '.join(cands)}. Choose one with "
-        "variable='NAME' (--var NAME on the command line)."
+        "variable='NAME'."
     )
 
 
@@ -187,16 +187,24 @@ def _storage(raw: xr.DataArray, rename: Mapping[str, str]) -> dict[str, Any]:
     return info
 
 
-def normalise_dataset(
-    ds: xr.Dataset, variable: str | None, opts: DecodeOptions, *, label: str, crs_wkt: str | None = None
-) -> xr.DataArray:
-    """Normalise one variable of a raw Dataset (see the module docstring for the steps)."""
-    variable = choose_variable(ds, variable, label)
+@dataclass
+class _Layout:
+    """Where the grid's space and time are: the layout, the spatial dims and the axes found."""
+
+    kind: str  # "regular", "curvilinear" or "projected"
+    ydim: str
+    xdim: str
+    axes: dict[str, dict[str, str]]
+    crs_wkt: str | None = None
+    lat_name: str = ""
+    lon_name: str = ""
+    tdim: str | None = None
+
+
+def _find_layout(ds: xr.Dataset, variable: str, opts: DecodeOptions, label: str,
+                 crs_wkt: str | None) -> _Layout:
+    """Step 1: the spatial axes (1-D lat/lon, 2-D curvilinear, or projected y/x) and the time dim."""
     raw = ds[variable]
-    raw_attrs = dict(raw.attrs)
-    notes: list[str] = []
-    axes: dict[str, dict[str, str]] = {}
-    layout = "regular"
     if crs_wkt is None:
         latm = find_axis(ds, variable, "lat", opts.lat)
         lonm = find_axis(ds, variable, "lon", opts.lon)
@@ -207,168 +215,229 @@ def normalise_dataset(
         elif latm is None or lonm is None:
             raise missing_axis_error(ds, variable, "lat" if latm is None else "lon")
     if crs_wkt is not None:
-        layout = "projected"
         ydim, xdim = (str(d) for d in raw.dims[-2:])
-        axes["y"] = {"name": ydim, "found_by": "projected grid (last two dimensions)"}
-        axes["x"] = {"name": xdim, "found_by": "projected grid (last two dimensions)"}
+        found = "projected grid (last two dimensions)"
+        layout = _Layout("projected", ydim, xdim, {"y": {"name": ydim, "found_by": found},
+                                                     "x": {"name": xdim, "found_by": found}}, crs_wkt)
     else:
         assert latm is not None and lonm is not None  # checked above
-        lat_name, lon_name = latm.name, lonm.name
-        lat_v, lon_v = ds[lat_name], ds[lon_name]
-        axes["lat"] = {"name": latm.name, "found_by": latm.found_by}
-        axes["lon"] = {"name": lonm.name, "found_by": lonm.found_by}
+        lat_v, lon_v = ds[latm.name], ds[lonm.name]
+        axes = {"lat": {"name": latm.name, "found_by": latm.found_by},
+                "lon": {"name": lonm.name, "found_by": lonm.found_by}}
         if lat_v.ndim == 1 and lon_v.ndim == 1:
-            ydim, xdim = str(lat_v.dims[0]), str(lon_v.dims[0])
+            kind, (ydim, xdim) = "regular", (str(lat_v.dims[0]), str(lon_v.dims[0]))
         elif lat_v.ndim == 2 and lon_v.dims == lat_v.dims:
-            layout = "curvilinear"
-            ydim, xdim = (str(d) for d in lat_v.dims)
+            kind, (ydim, xdim) = "curvilinear", (str(d) for d in lat_v.dims)
         else:
             raise GridError(
-                f"The latitude {lat_name!r} {lat_v.dims} and longitude {lon_name!r} {lon_v.dims} of "
+                f"The latitude {latm.name!r} {lat_v.dims} and longitude {lonm.name!r} {lon_v.dims} of "
                 f"{label} are neither both 1-D nor 2-D on the same dimensions."
             )
-    for d in (ydim, xdim):
+        layout = _Layout(kind, ydim, xdim, axes, None, latm.name, lonm.name)
+    for d in (layout.ydim, layout.xdim):
         if d not in raw.dims:
             raise InputError(f"The variable {variable!r} does not vary along the spatial dimension {d!r}.")
-    tdim = None
     if opts.time is not False:
         tm = find_axis(ds, variable, "time", opts.time or None)
         if tm is None:
             raise missing_axis_error(ds, variable, "time")
-        tdim = str(ds[tm.name].dims[0]) if ds[tm.name].ndim == 1 else None
-        if tdim is None or tdim not in raw.dims:
+        layout.tdim = str(ds[tm.name].dims[0]) if ds[tm.name].ndim == 1 else None
+        if layout.tdim is None or layout.tdim not in raw.dims:
             raise InputError(
                 f"The time axis {tm.name!r} is not a dimension of {variable!r}; open it as a static "
                 "grid with time=False, or name the time axis with time='NAME'."
             )
-        axes["time"] = {"name": tm.name, "found_by": tm.found_by}
+        layout.axes["time"] = {"name": tm.name, "found_by": tm.found_by}
+    return layout
+
+
+def _other_dims(ds: xr.Dataset, raw: xr.DataArray, variable: str, opts: DecodeOptions,
+                layout: _Layout, notes: list[str], picks: dict[str, int]) -> xr.DataArray:
+    """Step 2: pick the levels ``select`` names, drop length-1 dims, order (time, y, x).
+
+    ``picks`` receives the position taken along each dimension dropped."""
     for dim, value in (opts.select or {}).items():
         if dim not in raw.dims:
             raise InputError(f"select names the dimension {dim!r}, which {variable!r} does not have "
                              f"(dims {tuple(map(str, raw.dims))}).")
-        if dim in ds.variables and np.asarray(ds[dim].values).dtype.kind in "iuf":
-            raw = raw.sel({dim: value}, method="nearest")
+        if dim in ds.indexes and np.asarray(ds[dim].values).dtype.kind in "iuf":
+            # the index xarray's .sel(method="nearest") would pick, kept as a position
+            picks[dim] = int(ds.indexes[dim].get_indexer([value], method="nearest")[0])
         else:
-            raw = raw.isel({dim: int(value)})
+            picks[dim] = int(value)
+        raw = raw.isel({dim: picks[dim]})
         notes.append(f"selected {dim}={np.asarray(raw[dim].values).item() if dim in raw.coords else value}")
     for extra_dim in list(raw.dims):
         d = str(extra_dim)
-        if d not in (tdim, ydim, xdim):
+        if d not in (layout.tdim, layout.ydim, layout.xdim):
             if raw.sizes[d] == 1:
                 raw = raw.isel({d: 0}, drop=True)
+                picks[d] = 0
                 notes.append(f"length-1 dimension {d!r} dropped")
             else:
                 raise InputError(
                     f"The variable {variable!r} has the extra dimension {str(d)!r} of length "
                     f"{raw.sizes[d]}; pick one level with select={{{str(d)!r}: value}}."
                 )
-    order = ([tdim] if tdim else []) + [ydim, xdim]
-    raw = raw.transpose(*order)
-    out_names = {"regular": ("lat", "lon")}.get(layout, ("y", "x"))
-    rename = {ydim: out_names[0], xdim: out_names[1], **({tdim: "time"} if tdim else {})}
-    storage = _storage(raw, rename)
-    values, vnotes = decode_values(raw, raw_attrs, name=variable)
-    notes.extend(vnotes)
-    values = values.drop_vars(list(values.coords)).rename(rename)
+    order = ([layout.tdim] if layout.tdim else []) + [layout.ydim, layout.xdim]
+    return raw.transpose(*order)
 
-    if layout == "regular":
-        values = values.assign_coords(lat=_coord_values(ds[lat_name]), lon=_coord_values(ds[lon_name]))
+
+def _space_coords(values: xr.DataArray, ds: xr.Dataset, layout: _Layout,
+                  notes: list[str]) -> tuple[xr.DataArray, bool]:
+    """Step 3: spatial coordinates in envlink's conventions; whether the grid circles the globe."""
+    if layout.kind == "regular":
+        values = values.assign_coords(lat=_coord_values(ds[layout.lat_name]), lon=_coord_values(ds[layout.lon_name]))
         values, lnotes = normalise_lonlat(values)
         notes.extend(lnotes)
-        is_global = covers_circle(values["lon"].values) if values.sizes["lon"] > 1 else False
-    elif layout == "curvilinear":
-        lat2 = _coord_values(ds[lat_name])
+        return values, (covers_circle(values["lon"].values) if values.sizes["lon"] > 1 else False)
+    if layout.kind == "curvilinear":
+        lat2 = _coord_values(ds[layout.lat_name])
         check_latitudes(np.asarray(lat2, dtype=np.float64))
-        lon_in = _coord_values(ds[lon_name])
+        lon_in = _coord_values(ds[layout.lon_name])
         lon2 = wrap_longitude(lon_in)
         values = values.assign_coords(lat=(("y", "x"), lat2), lon=(("y", "x"), lon2))
         notes.append("curvilinear grid: 2-D lat/lon kept")
         if not np.array_equal(lon2, lon_in, equal_nan=True):
             notes.append(f"lon {np.nanmin(lon_in):g}..{np.nanmax(lon_in):g} wrapped into -180..180")
-        is_global = covers_circle(lon2[np.isfinite(lon2)])
-    else:
-        for dim, src in (("y", ydim), ("x", xdim)):
-            c = _coord_values(ds[src]) if src in ds.variables else np.arange(values.sizes[dim], dtype=float)
-            values = values.assign_coords({dim: c})
-            if c.size > 1 and np.all(np.diff(c) < 0):
-                values = values.isel({dim: slice(None, None, -1)})
-                notes.append(f"{dim} flipped to ascending")
-        notes.append("projected grid: coordinates kept in the grid's CRS")
-        is_global = False
+        return values, covers_circle(lon2[np.isfinite(lon2)])
+    for dim, src in (("y", layout.ydim), ("x", layout.xdim)):
+        c = _coord_values(ds[src]) if src in ds.variables else np.arange(values.sizes[dim], dtype=float)
+        values = values.assign_coords({dim: c})
+        if c.size > 1 and np.all(np.diff(c) < 0):
+            values = values.isel({dim: slice(None, None, -1)})
+            notes.append(f"{dim} flipped to ascending")
+    notes.append("projected grid: coordinates kept in the grid's CRS")
+    return values, False
 
+
+def _time_coords(values: xr.DataArray, ds: xr.Dataset, layout: _Layout, opts: DecodeOptions,
+                 label: str, notes: list[str]) -> tuple[xr.DataArray, str]:
+    """Step 4: decoded, sorted time stamps and their cells; returns the calendar too."""
+    name = layout.axes["time"]["name"]
+    stamps, starts, ends, cal = _decode_time_axis(ds, name, opts, notes)
+    sort = np.argsort(np.asarray([d for d in stamps], dtype=object), kind="stable")
+    if not np.array_equal(sort, np.arange(sort.size)):
+        values = values.isel(time=sort)
+        stamps = stamps[sort]
+        if starts is not None and ends is not None:
+            starts, ends = starts[sort], ends[sort]
+        notes.append("time sorted ascending")
+    if any(a == b for a, b in zip(stamps[:-1], stamps[1:], strict=True)):
+        raise GridError(f"The time axis of {label} holds duplicate stamps.")
+    if starts is None or ends is None:
+        starts, ends, rule = infer_cells(stamps, variable=name)
+        notes.append(rule)
+    values = values.assign_coords(
+        time=to_output_times(stamps, cal),
+        time_start=("time", to_output_times(starts, cal)),
+        time_end=("time", to_output_times(ends, cal)),
+    )
+    return values, cal
+
+
+def decode_time_alone(ds: xr.Dataset, name: str, opts: DecodeOptions, label: str) -> tuple[xr.DataArray, str, list[str]]:
+    """Decode one time axis on its own, as :func:`normalise_dataset` decodes a grid's.
+
+    Returns the positions of the stored steps in time order as a DataArray along
+    ``time`` with the ``time`` / ``time_start`` / ``time_end`` coordinates, the
+    calendar and the notes (used to put many files' steps on one axis).
+    """
+    notes: list[str] = []
+    index = xr.DataArray(np.arange(ds.sizes[ds[name].dims[0]]), dims="time")
+    layout = _Layout("regular", "", "", {"time": {"name": name, "found_by": "given"}}, tdim=str(ds[name].dims[0]))
+    values, cal = _time_coords(index, ds, layout, opts, label, notes)
+    return values, cal, notes
+
+
+def _canonical_units(values: xr.DataArray, variable: str, raw_attrs: Mapping[str, Any], opts: DecodeOptions,
+                     timed: bool, label: str, notes: list[str]) -> tuple[xr.DataArray, str, Any, bool]:
+    """Step 5: values in canonical units (amounts per step become rates); the units and conversion."""
+    conv, per_step = unit_conversion(variable, raw_attrs, opts.units, timed, label, notes)
+    days = step_days(values["time_start"].values, values["time_end"].values) if per_step else None
+    return convert_units(values, conv, per_step, days), conv.target, conv, per_step
+
+
+@dataclass
+class ReadRecipe:
+    """How a normalised grid's values come from the stored ones, for reading them cell by cell.
+
+    ``dims``: the variable's stored dims; ``tdim``, ``ydim``, ``xdim``: the stored
+    names of time and the two spatial dims; ``picks``: the position taken along
+    every other stored dim; ``iy`` / ``ix``: the stored row / column of each
+    normalised one (latitudes flipped, longitudes rolled); ``conv`` / ``per_step``:
+    the unit conversion; ``dtype``: the normalised values' dtype; ``notes_space`` /
+    ``notes_time`` / ``notes_units``: the conventions applied, by step.
+    """
+
+    variable: str
+    raw_attrs: dict[str, Any]
+    dims: tuple[str, ...]
+    tdim: str | None
+    ydim: str
+    xdim: str
+    picks: dict[str, int]
+    iy: np.ndarray
+    ix: np.ndarray
+    conv: Any
+    per_step: bool
+    dtype: np.dtype
+    layout: Any
+    notes_space: list[str]
+    notes_time: list[str]
+    notes_units: list[str]
+
+
+def normalise_dataset(
+    ds: xr.Dataset, variable: str | None, opts: DecodeOptions, *, label: str, crs_wkt: str | None = None,
+    recipe: list[ReadRecipe] | None = None,
+) -> xr.DataArray:
+    """Normalise one variable of a raw Dataset (see the module docstring for the steps).
+
+    With ``recipe`` (a list), a :class:`ReadRecipe` of this grid is appended to it.
+    """
+    variable = choose_variable(ds, variable, label)
+    raw_attrs = dict(ds[variable].attrs)
+    notes: list[str] = []
+    layout = _find_layout(ds, variable, opts, label, crs_wkt)
+    picks: dict[str, int] = {}
+    raw = _other_dims(ds, ds[variable], variable, opts, layout, notes, picks)
+    out_names = {"regular": ("lat", "lon")}.get(layout.kind, ("y", "x"))
+    rename = {layout.ydim: out_names[0], layout.xdim: out_names[1],
+              **({layout.tdim: "time"} if layout.tdim else {})}
+    storage = _storage(raw, rename)
+    values, vnotes = decode_values(raw, raw_attrs, name=variable)
+    notes.extend(vnotes)
+    values = values.drop_vars(list(values.coords)).rename(rename)
+    if recipe is not None:  # stored positions, carried through the flips and rolls
+        values = values.assign_coords(_envlink_iy=(out_names[0], np.arange(values.sizes[out_names[0]])),
+                                      _envlink_ix=(out_names[1], np.arange(values.sizes[out_names[1]])))
+    values, is_global = _space_coords(values, ds, layout, notes)
+    n_space = len(notes)
     attrs: dict[str, Any] = {k: raw_attrs[k] for k in _KEEP_ATTRS if k in raw_attrs}
-    if tdim is not None:
-        stamps, starts, ends, cal = _decode_time_axis(ds, axes["time"]["name"], opts, notes)
-        sort = np.argsort(np.asarray([d for d in stamps], dtype=object), kind="stable")
-        if not np.array_equal(sort, np.arange(sort.size)):
-            values = values.isel(time=sort)
-            stamps = stamps[sort]
-            if starts is not None and ends is not None:
-                starts, ends = starts[sort], ends[sort]
-            notes.append("time sorted ascending")
-        if any(a == b for a, b in zip(stamps[:-1], stamps[1:], strict=True)):
-            raise GridError(f"The time axis of {label} holds duplicate stamps.")
-        if starts is None or ends is None:
-            starts, ends, rule = infer_cells(stamps, variable=axes["time"]["name"])
-            notes.append(rule)
-        values = values.assign_coords(
-            time=to_output_times(stamps, cal),
-            time_start=("time", to_output_times(starts, cal)),
-            time_end=("time", to_output_times(ends, cal)),
-        )
-        attrs["calendar"] = cal
-
-    units_text = opts.units if opts.units is not None else raw_attrs.get("units")
-    if opts.units is not None:
-        notes.append(
-            f"units declared as {opts.units!r}"
-            + (f" (file says {raw_attrs['units']!r})" if raw_attrs.get("units") not in (None, opts.units) else "")
-        )
-    if units_text is None:
-        raise InputError(
-            f"The variable {variable!r} in {label} has no units attribute. Declare its units with "
-            "units='degC' (say; any units pint reads, '1' for a dimensionless quantity), or --units "
-            "on the command line."
-        )
-    hint = " ".join(str(raw_attrs.get(k, "")) for k in ("standard_name", "long_name")) + " " + variable
-    conv, per_step = canonical_conversion(str(units_text), variable=repr(variable), standard_name=hint)
-    if not conv.is_identity or per_step:
-        if values.dtype != np.float64:
-            values = values.astype(np.float64)
-        if conv.scale != 1.0:
-            values = values * conv.scale
-        if conv.offset != 0.0:
-            values = values + conv.offset
-        if per_step:
-            if tdim is None:
-                raise InputError(
-                    f"{variable!r} holds amounts per time step ({units_text}); a static grid has no "
-                    "step to turn them into a rate. Declare a rate with units='mm/day' if it is one."
-                )
-            days = (_to_cftime_days(values["time_start"].values, values["time_end"].values))
-            values = values / xr.DataArray(days, dims="time")
-        notes.append(conv.note)
-    elif conv.source != conv.target:
-        notes.append(f"units {conv.source} read as {conv.target}")
+    if layout.tdim is not None:
+        values, attrs["calendar"] = _time_coords(values, ds, layout, opts, label, notes)
+    n_time = len(notes)
+    values, units, conv, per_step = _canonical_units(values, variable, raw_attrs, opts, layout.tdim is not None,
+                                                     label, notes)
+    if recipe is not None:
+        recipe.append(ReadRecipe(
+            variable, raw_attrs, tuple(str(d) for d in ds[variable].dims), layout.tdim, layout.ydim, layout.xdim,
+            picks, np.asarray(values["_envlink_iy"].values), np.asarray(values["_envlink_ix"].values), conv,
+            per_step, np.dtype(values.dtype), layout, notes[:n_space], notes[n_space:n_time], notes[n_time:]))
+        values = values.drop_vars(["_envlink_iy", "_envlink_ix"])
     attrs.update(
-        units=conv.target,
+        units=units,
         envlink_variable=variable,
         envlink_global=bool(is_global),
         envlink_conventions=json.dumps(notes),
-        envlink_axes=json.dumps(axes),
-        envlink_layout=layout,
+        envlink_axes=json.dumps(layout.axes),
+        envlink_layout=layout.kind,
         envlink_storage=json.dumps(storage),
         _raw_attrs=raw_attrs,
     )
-    if crs_wkt is not None:
-        attrs["crs_wkt"] = crs_wkt
+    if layout.crs_wkt is not None:
+        attrs["crs_wkt"] = layout.crs_wkt
     values.attrs = attrs
     values.name = variable
     return values
-
-
-def _to_cftime_days(starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
-    s, e = np.asarray(starts), np.asarray(ends)
-    if s.dtype.kind == "M":
-        return (e - s) / np.timedelta64(1, "D")
-    return np.array([(b - a).total_seconds() / 86400.0 for a, b in zip(s, e, strict=True)])

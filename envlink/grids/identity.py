@@ -23,7 +23,7 @@ import numpy as np
 
 from envlink.errors import GridError
 
-__all__ = ["grid_identity", "identity_json", "json_safe"]
+__all__ = ["grid_identity", "archive_identity", "identity_json", "json_safe"]
 
 _BLOCK = 64 * 1024
 _SAMPLES = 16
@@ -193,6 +193,53 @@ def grid_identity(
         "attrs": json_safe(dict(attrs)),
         "hash": "full" if full_hash else "sampled",
     }
+    ident["key"] = hashlib.sha256(identity_json(ident).encode()).hexdigest()
+    return ident
+
+
+def archive_identity(
+    paths: Sequence[str | os.PathLike[str]],
+    variable: str,
+    attrs: Mapping[str, Any],
+    *,
+    stats: Sequence[tuple[int, int]],
+    full_hash: bool = False,
+) -> dict[str, Any]:
+    """Identity of a many-file archive: every file's path, size and modification time.
+
+    Reading a sample of every file of a daily archive would cost more than opening
+    it, so the content is hashed only with ``full_hash=True``; a file rewritten
+    under the same name changes its size or modification time, hence the key.
+
+    Parameters
+    ----------
+    paths : sequence of path
+        The files, in time order.
+    variable : str
+        The data variable's name.
+    attrs : mapping
+        The variable's attributes as stored.
+    stats : sequence of (int, int)
+        Each file's size in bytes and modification time in nanoseconds.
+    full_hash : bool
+        Also hash every byte of every file.
+
+    Examples
+    --------
+    >>> ident = archive_identity(["/d/a.nc", "/d/b.nc"], "sst", {}, stats=[(10, 0), (10, 10**9)])
+    >>> [f["mtime"][:19] for f in ident["files"]], ident["hash"]
+    (['1970-01-01T00:00:00', '1970-01-01T00:00:01'], 'stat')
+    """
+    entries = []
+    for p, (size, mtime_ns) in zip(paths, stats, strict=True):
+        when = _dt.datetime.fromtimestamp(mtime_ns // 1000 / 1e6, tz=_dt.UTC)
+        entry: dict[str, Any] = {"path": os.path.realpath(p), "size": int(size), "mtime_ns": int(mtime_ns),
+                                 "mtime": when.isoformat(timespec="microseconds")}
+        if full_hash:
+            entry["sha256"] = _hash_file(Path(p), int(size), True)
+        entries.append(entry)
+    ident: dict[str, Any] = {"files": entries, "variable": variable, "attrs": json_safe(dict(attrs)),
+                             "hash": "full" if full_hash else "stat"}
     ident["key"] = hashlib.sha256(identity_json(ident).encode()).hexdigest()
     return ident
 

@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from envlink.grids.archive import archive_summary
 from envlink.grids.conventions import GridWarning
 from envlink.grids.decode import _to_cftime
 from envlink.grids.identity import json_safe
@@ -51,6 +52,7 @@ class GridInfo:
     storage: dict[str, Any]
     warnings: list[str] = field(default_factory=list)
     identity: dict[str, Any] = field(default_factory=dict)
+    archive: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready dictionary of every field."""
@@ -96,6 +98,11 @@ class GridInfo:
             ", ".join(f"{k}={v}" for k, v in chunks.items()) if isinstance(chunks, dict) else (chunks or "unknown")
         )
         lines.append(f"Storage: chunks {chunk_text}" + (f"; {self.storage['files']} files" if "files" in self.storage else ""))
+        if self.archive:
+            a = self.archive
+            lines.append(f"Archive: {a['files']} files ({a['first']} .. {a['last']}) in {a['folder']}; "
+                         f"{a['n_gaps']} gap(s) between files; read file by file, only the needed cells, "
+                         "in worker processes (docs/archives.md)")
         if self.warnings:
             lines.append("Warnings:")
             lines.extend(f"  ! {w}" for w in self.warnings)
@@ -163,6 +170,14 @@ def _masked(da: xr.DataArray) -> tuple[float, str]:
 def _file_variables(source: Any) -> dict[str, dict[str, Any]]:
     if isinstance(source, (xr.DataArray, xr.Dataset)):
         ds = source.to_dataset(name=source.name or "data") if isinstance(source, xr.DataArray) else source
+    elif isinstance(source, str) and "://" in source:
+        from envlink.grids.remote import is_url, open_remote_raw
+
+        if is_url(source):
+            raw, _, _ = open_remote_raw(source)
+            with raw:
+                return _variables(raw)
+        first = resolve_paths(source)[0]
     else:
         first = resolve_paths(source)[0]
         if _is_tiff(first):
@@ -242,28 +257,31 @@ def grid_info(
         storage["files"] = len(identity["files"])
     time = _time_summary(da) if "time" in da.dims else None
     chunks = storage.get("chunks")
+    archive = archive_summary(da)
     if time is not None and isinstance(chunks, dict) and "time" in chunks:
         tc, nt = chunks["time"], time["steps"]
+        if archive is not None:  # an archive is read file by file: what counts is one file's steps
+            nt = int(storage.get("shape", {}).get("time", 1))
         if nt > 1 and tc * 20 <= nt:
             notes.append(
                 f"storage is chunked by time ({tc} step(s) per chunk over {nt} steps): a point "
                 "series reads every chunk, so extraction will be slow; rechunk along time first "
                 "(e.g. xarray .chunk({'time': -1, ...}).to_zarr(...))."
             )
-    if storage.get("files", 0) >= 20:
+    if storage.get("files", 0) >= 20 and archive is None:
         notes.append(f"the grid is split over {storage['files']} files: a point series opens every "
                      "file; combine them into one time-chunked store for repeated extraction.")
     if any(c.startswith("no calendar attribute") for c in conventions):
         notes.append("the time axis has no calendar attribute; CF's default 'standard' was assumed "
-                     "(declare another with calendar= / --calendar).")
+                     "(declare another with calendar='NAME').")
     fraction, sample_text = _masked(da)
     if fraction >= 1.0:
         notes.append(f"every cell looked at is masked or missing ({sample_text}): no value can be "
-                     "attached from this variable; check --var and the file's _FillValue/valid_range.")
+                     "attached from this variable; check the variable (variable=) and the file's _FillValue/valid_range.")
     extent, res = _extent(da)
     files = identity.get("files", [])
     source_text = (
-        ", ".join(str(Path(f["path"])) for f in files[:3]) + (f" (+{len(files) - 3} more)" if len(files) > 3 else "")
+        ", ".join(str(f["path"]) if f.get("remote") else str(Path(f["path"])) for f in files[:3]) + (f" (+{len(files) - 3} more)" if len(files) > 3 else "")
         if files else "in-memory grid"
     )
     return GridInfo(
@@ -284,4 +302,6 @@ def grid_info(
         storage=storage,
         warnings=notes,
         identity=identity,
+        archive=archive,
     )
+

@@ -14,8 +14,6 @@ import glob as _glob
 import importlib.util
 import json
 import os
-import sys
-import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any, Literal
@@ -25,6 +23,7 @@ import xarray as xr
 
 from envlink.errors import GridError, InputError
 from envlink.grids.decode import DecodeOptions, normalise_dataset
+from envlink.grids.filecheck import check_classic_size, file_format, first_bytes, has_grid_signature
 from envlink.grids.geotiff import read_geotiff
 from envlink.grids.identity import grid_identity, identity_json, memory_identity
 
@@ -41,7 +40,13 @@ def _is_zarr(path: Path) -> bool:
 
 
 def _is_tiff(path: Path) -> bool:
-    return path.suffix.lower() in (".tif", ".tiff")
+    if path.suffix.lower() in (".tif", ".tiff"):
+        return True
+    return path.suffix.lower() not in (".nc", ".nc4", ".cdf", ".h5", ".zarr") and file_format(path) == "tiff"
+
+
+#: xarray engine per file format: the netCDF-C library reads classic and HDF5 files.
+_ENGINES = {"netcdf4": "netcdf4", "netcdf3": "netcdf4"}
 
 
 def resolve_paths(source: str | os.PathLike[str] | Sequence[str | os.PathLike[str]]) -> list[Path]:
@@ -159,70 +164,6 @@ def storage_chunks_for(ds: xr.Dataset, name: str) -> dict[str, int]:
     return dict(zip(dims, spec, strict=True))
 
 
-def check_classic_size(path: Path) -> None:
-    """Reject a classic netCDF file (CDF-1/CDF-2) shorter than its header says it is.
-
-    The netCDF library opens such a truncated file without complaint and reads the
-    missing part as zeros, so the check maps the file (nothing is read) with
-    scipy's independent reader of the classic format, which verifies that every
-    variable's data lie inside the file.
-    """
-    try:
-        with open(path, "rb") as f:
-            magic = f.read(4)
-    except OSError as exc:
-        raise GridError(f"Cannot read the grid file {str(path)!r}: {exc.strerror or exc}") from None
-    if magic == b"\x89HDF":
-        _check_hdf5_size(path)
-        return
-    if magic not in (b"CDF\x01", b"CDF\x02"):
-        return
-    from scipy.io import netcdf_file
-
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)  # scipy: "cannot close ... mmap"
-            with netcdf_file(path, "r", mmap=True) as nc:
-                for var in nc.variables.values():
-                    _ = var.data.shape
-    except Exception as exc:  # noqa: BLE001 - any failure means the header and size disagree
-        raise GridError(
-            f"The netCDF file {str(path)!r} is truncated or corrupt: its header describes more "
-            f"data than the file's {path.stat().st_size} bytes hold ({type(exc).__name__})."
-        ) from None
-
-
-def _check_hdf5_size(path: Path) -> None:
-    """Compare an HDF5 (netCDF-4) file's size with the end-of-file address in its superblock.
-
-    Superblock layout (HDF5 File Format Specification, version 3.0, §II.A): versions 0
-    and 1 hold the end-of-file address as the third address after a fixed 24-byte (v0)
-    or 28-byte (v1) preamble; versions 2 and 3 as the third field after 12 bytes.
-    """
-    with open(path, "rb") as f:
-        head = f.read(128)
-    if len(head) < 12 or head[:8] != b"\x89HDF\r\n\x1a\n":
-        return
-    version = head[8]
-    if version in (0, 1):
-        size_offsets, start = head[13], (24 if version == 0 else 28)
-    elif version in (2, 3):
-        size_offsets, start = head[9], 12
-    else:
-        return
-    if size_offsets not in (2, 4, 8) or len(head) < start + 3 * size_offsets:
-        return
-    base = int.from_bytes(head[start : start + size_offsets], "little")
-    field = start + 2 * size_offsets  # base address, one more address, then end of file
-    eof = int.from_bytes(head[field : field + size_offsets], "little")
-    actual = path.stat().st_size
-    if base + eof > actual:
-        raise GridError(
-            f"The netCDF-4/HDF5 file {str(path)!r} is truncated: it holds {actual} bytes but its "
-            f"superblock says {base + eof}. Download or copy it again."
-        )
-
-
 def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> xr.Dataset:
     """Open a netCDF file or Zarr store without any CF decoding, naming the path on failure."""
     if not _is_zarr(path):
@@ -238,6 +179,10 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
         kwargs["consolidated"] = _zarr_consolidated(path)
     elif engine is not None:
         kwargs["engine"] = engine
+    elif file_format(path) in _ENGINES:
+        # named from the file's signature: xarray's guessing would import every engine
+        # installed (GeoTIFF's among them) to ask each whether it reads the file
+        kwargs["engine"] = _ENGINES[file_format(path)]
     follow = kwargs["chunks"] == "auto"
     if follow:
         kwargs["chunks"] = None  # lazy; dask chunks that follow the storage are set below
@@ -245,53 +190,46 @@ def open_raw(path: Path, *, chunks: Any = "auto", engine: str | None = None) -> 
         ds = xr.open_dataset(path, **kwargs)
     except Exception as exc:  # noqa: BLE001 - every backend failure means an unreadable file
         kind = "Zarr store" if _is_zarr(path) else "grid file"
-        if kind == "grid file" and not _has_grid_signature(path):
-            begins = f"it begins with {_first_bytes(path)!r}" if path.stat().st_size else "it is empty (0 bytes)"
+        if kind == "grid file" and not has_grid_signature(path):
+            begins = f"it begins with {first_bytes(path)!r}" if path.stat().st_size else "it is empty (0 bytes)"
             raise GridError(
                 f"Cannot open the grid file {str(path)!r}: it is not a netCDF (classic or "
-                f"netCDF-4/HDF5) or GeoTIFF file; {begins}. Check the path: envlink grid "
-                "and --grid read gridded rasters, not tables."
+                f"netCDF-4/HDF5) or GeoTIFF file; {begins}. Check the path: grids are "
+                "gridded rasters, not tables."
             ) from None
         reason = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
         raise GridError(
             f"Cannot open the {kind} {str(path)!r}: {type(exc).__name__}: {reason}. "
             "It may be truncated, corrupt or not a netCDF/Zarr/GeoTIFF grid."
         ) from None
-    if follow:
-        for name in list(ds.data_vars):
-            if ds[name].ndim >= 2:
-                ds[name] = ds[name].chunk(storage_chunks_for(ds, str(name)))
+    return _follow_storage(ds) if follow else ds
+
+
+def _follow_storage(ds: xr.Dataset) -> xr.Dataset:
+    """Dask chunks that follow each gridded variable's storage (:func:`storage_chunks_for`)."""
+    for name in list(ds.data_vars):
+        if ds[name].ndim >= 2:
+            ds[name] = ds[name].chunk(storage_chunks_for(ds, str(name)))
     return ds
 
 
-#: File signatures of the formats open_raw reads: netCDF classic / 64-bit offset /
-#: CDF-5 (NetCDF Classic Format Spec.), HDF5 superblock (HDF5 File Format Spec. 2.2),
-#: TIFF and BigTIFF byte-order marks (TIFF 6.0, section 2).
-_SIGNATURES = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n", b"II*\x00", b"MM\x00*",
-               b"II+\x00", b"MM\x00+")
+def _open_url(url: str, variable: str | None, opts: DecodeOptions, chunks: Any, engine: str | None) -> xr.DataArray:
+    """A Zarr store or netCDF file at a URL (see :mod:`envlink.grids.remote`)."""
+    from envlink.grids.remote import open_remote_raw, remote_identity
 
-
-def _has_grid_signature(path: Path) -> bool:
-    """True when the file starts like netCDF/HDF5/TIFF (HDF5 may sit after a user block)."""
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(8)
-            if head.startswith(_SIGNATURES):
-                return True
-            for offset in (512, 1024, 2048, 4096):  # HDF5 superblock after a user block
-                fh.seek(offset)
-                if fh.read(8) == b"\x89HDF\r\n\x1a\n":
-                    return True
-    except OSError:
-        return True  # cannot tell; keep the backend's own reason
-    return False
-
-
-def _first_bytes(path: Path) -> str:
-    with open(path, "rb") as fh:
-        head = fh.read(24)
-    text = head.decode("utf-8", errors="replace").replace("\r", " ").replace("\n", " ")
-    return text if text.isprintable() else repr(head)
+    ds, entry, _ = open_remote_raw(url, engine)
+    follow = _chunks(chunks) == "auto"
+    if follow:
+        ds = _follow_storage(ds)
+    elif chunks is not None:
+        ds = ds.chunk(chunks)
+    da = normalise_dataset(ds, variable, opts, label=repr(url))
+    raw_attrs = da.attrs.pop("_raw_attrs")
+    storage = json.loads(da.attrs["envlink_storage"])
+    storage["remote"] = True  # read one storage chunk at a time (envlink.extract.reader)
+    da.attrs["envlink_storage"] = json.dumps(storage)
+    da.attrs["envlink_identity"] = identity_json(remote_identity(entry, da.attrs["envlink_variable"], raw_attrs))
+    return da
 
 
 def _in_memory_identity(ds: xr.Dataset, variable: str) -> dict[str, Any]:
@@ -304,11 +242,11 @@ def _in_memory_identity(ds: xr.Dataset, variable: str) -> dict[str, Any]:
 
 
 def _open_one(path: Path, variable: str | None, opts: DecodeOptions, chunks: Any, engine: str | None,
-              band_dates: Sequence[Any] | None, full_hash: bool) -> xr.DataArray:
+              band_dates: str | Sequence[Any] | None, full_hash: bool) -> xr.DataArray:
     crs_wkt = None
     if _is_tiff(path):
         ds, tif_var, crs_wkt = read_geotiff(path, band_dates=band_dates, chunks=_chunks(chunks),
-                                            static=opts.time is False)
+                                            static=opts.time is False, calendar=opts.calendar)
         if variable is not None and variable != tif_var:
             raise InputError(
                 f"The GeoTIFF {str(path)!r} holds one variable, {tif_var!r}; got variable={variable!r}."
@@ -379,7 +317,7 @@ def open_grid(
     time: str | Literal[False] | None = None,
     units: str | None = None,
     calendar: str | None = None,
-    band_dates: Sequence[Any] | None = None,
+    band_dates: str | Sequence[Any] | None = None,
     chunks: Any = "auto",
     select: Mapping[str, Any] | None = None,
     engine: str | None = None,
@@ -389,9 +327,12 @@ def open_grid(
 
     Parameters
     ----------
-    source : path, glob pattern, sequence of paths, xarray.Dataset or xarray.DataArray
+    source : path, glob pattern, sequence of paths, URL, xarray.Dataset or xarray.DataArray
         A netCDF file, a Zarr store (directory or ``.zarr``), a GeoTIFF (``.tif``), a
-        list or glob of files combined along time, or an object already open.
+        list or glob of files combined along time (netCDF files form an archive read
+        file by file, docs/archives.md), the URL of a Zarr store or netCDF file
+        (``https://``, ``s3://`` ...; read through fsspec, only the chunks needed),
+        or an object already open.
     variable : str, optional
         The data variable; needed when the file holds more than one.
     lat, lon, time : str, optional
@@ -401,8 +342,12 @@ def open_grid(
         The units of the values, overriding (or supplying) the ``units`` attribute.
     calendar : str, optional
         The CF calendar of the time axis, overriding (or supplying) the attribute.
-    band_dates : sequence, optional
-        GeoTIFF only: one ISO date, or one ``(start, end)`` pair, per band.
+    band_dates : str or sequence, optional
+        GeoTIFF only: one ISO date, or one ``(start, end)`` pair, per band; or text
+        (``"2001-01-01,2001-02-01"``, intervals ``start/end``, or a repeating interval
+        ``"R/2001-01-01/P1M"``), read in ``calendar`` (see
+        :func:`envlink.grids.geotiff.band_times`). A GeoTIFF made by GDAL from a netCDF
+        file takes the dates it recorded when none are given.
     chunks : "auto", dict, int or None
         Dask chunks (``"auto"`` when Dask is installed); ``None`` opens without Dask.
     select : mapping, optional
@@ -453,16 +398,26 @@ def open_grid(
             _in_memory_identity(source, da.attrs["envlink_variable"])
         )
         return da
+    if isinstance(source, str) and "://" in source:
+        from envlink.grids.remote import is_url
+
+        if is_url(source):
+            return _open_url(source, variable, opts, chunks, engine)
     paths = resolve_paths(source)
     if len(paths) == 1:
         return _open_one(paths[0], variable, opts, chunks, engine, band_dates, full_hash)
     if band_dates is not None:
         raise InputError("band_dates applies to one GeoTIFF; several files were given.")
-    from tqdm.auto import tqdm
+    if time is not False and all(file_format(p) in _ENGINES for p in paths[:1]):
+        from envlink.grids.archive import open_archive
+
+        da = open_archive(paths, open_raw(paths[0], chunks=None, engine=engine), variable, opts, full_hash)
+        return da.chunk(chunks) if chunks not in (None, "auto") else da
+    from envlink.core.progress import progress_bar
 
     parts = []
-    for p in tqdm(paths, desc="opening grid files", unit="file", file=sys.stderr,
-                  disable=len(paths) < 8, leave=False):
+    for p in progress_bar(len(paths), "opening grid files", "file", show=None if len(paths) >= 8 else False,
+                          iterable=paths):
         parts.append(_open_one(p, variable, opts, chunks, engine, None, full_hash))
         variable = parts[-1].attrs["envlink_variable"]
     return _combine(parts, paths, full_hash)

@@ -14,6 +14,7 @@ import re
 import cftime
 import numpy as np
 
+from envlink.core.calendars import CF_CALENDARS, STANDARD_CALENDARS
 from envlink.errors import GridError, InputError
 
 __all__ = [
@@ -26,21 +27,6 @@ __all__ = [
     "to_output_times",
     "step_kind",
 ]
-
-#: Calendars of CF v1.11 §4.4.1 (``none`` is not accepted: it carries no dates).
-CF_CALENDARS = (
-    "standard",
-    "gregorian",
-    "proleptic_gregorian",
-    "julian",
-    "noleap",
-    "365_day",
-    "all_leap",
-    "366_day",
-    "360_day",
-)
-#: Calendars whose stamps are returned as ``datetime64[ns]``.
-STANDARD_CALENDARS = ("standard", "gregorian", "proleptic_gregorian")
 
 _UNITS = re.compile(r"^\s*(\w+)\s+since\s+(.+?)\s*$", re.IGNORECASE)
 _MONTH_WORDS = ("month", "months", "mon")
@@ -61,8 +47,7 @@ def normalise_calendar(calendar: str | None, *, variable: str = "time") -> str:
     if cal not in CF_CALENDARS:
         raise InputError(
             f"The calendar {calendar!r} of {variable} is not a CF calendar; expected one of "
-            f"{', '.join(CF_CALENDARS)}. Declare the right one with calendar='noleap' (say), "
-            "or --calendar on the command line."
+            f"{', '.join(CF_CALENDARS)}. Declare the right one with calendar='noleap' (say)."
         )
     return cal
 

@@ -1,6 +1,6 @@
 """Units of grid variables: parse CF/UDUNITS strings with pint and convert to canonical units.
 
-Canonical units (DESIGN §4): temperatures in ``degC``; precipitation rates (a mass
+Canonical units (docs/grids.md, "Units"): temperatures in ``degC``; precipitation rates (a mass
 flux such as ``kg m-2 s-1`` or a depth rate such as ``m/s``) in ``mm/day``. A mass
 flux of water becomes a depth rate through the density of liquid water, taken as
 exactly 1000 kg m-3 (so 1 kg m-2 of water is 1 mm). Other quantities keep the units
@@ -12,13 +12,20 @@ from __future__ import annotations
 
 import functools
 import re
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
-import pint
+import numpy as np
+import xarray as xr
 
 from envlink.errors import InputError
 
-__all__ = ["Conversion", "parse_units", "canonical_conversion", "WATER_DENSITY_KG_M3"]
+if TYPE_CHECKING:
+    import pint
+
+__all__ = ["Conversion", "parse_units", "canonical_conversion", "WATER_DENSITY_KG_M3", "unit_conversion",
+           "convert_units", "step_days"]
 
 #: Density of liquid water used to turn a mass flux into a depth rate (kg m-3).
 WATER_DENSITY_KG_M3 = 1000.0
@@ -60,6 +67,8 @@ _EXPONENT = re.compile(r"(?<![\w*^])([A-Za-z]+)\^?(-?\d+)(?![\w.])")
 
 @functools.lru_cache(maxsize=1)
 def _registry() -> pint.UnitRegistry:
+    import pint  # imported on first use: grids in degrees Celsius never need it
+
     return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 
 
@@ -108,8 +117,8 @@ def parse_units(text: str, *, variable: str = "the variable") -> pint.Unit:
     except Exception as exc:  # pint raises several unrelated types for bad text
         raise InputError(
             f"The units {text!r} of {variable} are not recognised ({type(exc).__name__}). "
-            "Declare them with open_grid(..., units='K') (any units pint reads, e.g. "
-            "'degC', 'K', 'degF', 'kg m-2 s-1', 'mm/day', '1'), or --units on the command line."
+            "Declare them with units='K' (say; any units pint reads, e.g. "
+            "'degC', 'K', 'degF', 'kg m-2 s-1', 'mm/day', '1')."
         ) from None
     return unit
 
@@ -173,6 +182,9 @@ def canonical_conversion(
     >>> c.target, c.scale
     ('mm/day', 86400.0)
     """
+    if _ALIASES.get(str(text).strip().lower()) == "degC" or str(text).strip() == "degC":
+        # already canonical: pint (a costly import) is not needed to say so
+        return Conversion(str(text), "degC", 1.0, 0.0, f"units {text} -> degC"), False
     ureg = _registry()
     unit = parse_units(text, variable=variable)
     dim = ureg.Quantity(1.0, unit).dimensionality
@@ -211,3 +223,58 @@ def canonical_conversion(
         note = f"units {text} per time step -> mm/day (x * {scale:g} / step length in days)"
         return Conversion(str(text), "mm/day", scale, offset, note), True
     return Conversion(str(text), str(text), 1.0, 0.0, ""), False
+
+
+def unit_conversion(variable: str, raw_attrs: Mapping[str, Any], declared: str | None, timed: bool,
+                    label: str, notes: list[str]) -> tuple[Conversion, bool]:
+    """The conversion to canonical units and whether values are amounts per time step."""
+    units_text = declared if declared is not None else raw_attrs.get("units")
+    if declared is not None:
+        notes.append(
+            f"units declared as {declared!r}"
+            + (f" (file says {raw_attrs['units']!r})" if raw_attrs.get("units") not in (None, declared) else "")
+        )
+    if units_text is None:
+        raise InputError(
+            f"The variable {variable!r} in {label} has no units attribute. Declare its units with "
+            "units='degC' (say; any units pint reads, '1' for a dimensionless quantity)."
+        )
+    hint = " ".join(str(raw_attrs.get(k, "")) for k in ("standard_name", "long_name")) + " " + variable
+    conv, per_step = canonical_conversion(str(units_text), variable=repr(variable), standard_name=hint)
+    if per_step and not timed:
+        raise InputError(
+            f"{variable!r} holds amounts per time step ({units_text}); a static grid has no "
+            "step to turn them into a rate. Declare a rate with units='mm/day' if it is one."
+        )
+    if not conv.is_identity or per_step:
+        notes.append(conv.note)
+    elif conv.source != conv.target:
+        notes.append(f"units {conv.source} read as {conv.target}")
+    return conv, per_step
+
+
+def convert_units(values: xr.DataArray, conv: Conversion, per_step: bool, days: np.ndarray | None) -> xr.DataArray:
+    """Apply :func:`unit_conversion`'s result (``days``: each time step's length, for per-step amounts).
+
+    The one home of these operations, so a grid read whole and one read cell by cell
+    (:mod:`envlink.grids.archive`) get the same float values, bit for bit.
+    """
+    if conv.is_identity and not per_step:
+        return values
+    if values.dtype != np.float64:
+        values = values.astype(np.float64)
+    if conv.scale != 1.0:
+        values = values * conv.scale
+    if conv.offset != 0.0:
+        values = values + conv.offset
+    if per_step:
+        values = values / xr.DataArray(days, dims="time")
+    return values
+
+
+def step_days(starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+    """Length in days of each time cell ``[start, end)``."""
+    s, e = np.asarray(starts), np.asarray(ends)
+    if s.dtype.kind == "M":
+        return (e - s) / np.timedelta64(1, "D")
+    return np.array([(b - a).total_seconds() / 86400.0 for a, b in zip(s, e, strict=True)])

@@ -8,13 +8,13 @@ checking ranges, is the job of :mod:`envlink.locate.coords`.
 
 from __future__ import annotations
 
-import math
 import re
 import unicodedata
 from dataclasses import dataclass
 from decimal import Decimal
 
-from envlink._util import INVISIBLE_CHARS as _INVISIBLE
+from envlink.core.earth import KM_PER_DEG
+from envlink.core.util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import FieldError
 
 __all__ = [
@@ -53,8 +53,8 @@ COORDINATE_ERRORS: dict[str, str] = {
     "negative_seconds": "seconds carry a minus sign",
 }
 
-#: one degree of latitude arc on the IUGG mean sphere (R = 6371.0088 km), in km
-KM_PER_DEGREE = 6371.0088 * math.pi / 180.0
+#: one degree of latitude arc on the IUGG mean sphere, in km (:mod:`envlink.core.earth`)
+KM_PER_DEGREE = KM_PER_DEG
 #: size in km of one whole degree, minute and second of latitude arc
 _UNIT_KM = (KM_PER_DEGREE, KM_PER_DEGREE / 60.0, KM_PER_DEGREE / 3600.0)
 _UNIT_NAMES = ("degrees", "minutes", "seconds")

@@ -74,7 +74,8 @@ def _read_either_order(reader: _Reader, norm: str, order: Order | None) -> Perio
     if isinstance(day, PeriodError) or isinstance(month, PeriodError) or day == month:
         return month if isinstance(day, PeriodError) else day  # type: ignore[return-value]
     note = (f"{raw.strip()!r} reads as {_span(day)} (day first) or {_span(month)} (month first); "
-            "give the order (order='dayfirst' or 'monthfirst'; --dayfirst or --monthfirst)")
+            "give the order (order='dayfirst' or 'monthfirst'; --dayfirst or --monthfirst on the "
+            "command line)")
     return Period(None, None, day.precision, ("ambiguous_day_month", *day.flags), (note, *day.notes))
 
 

@@ -14,7 +14,7 @@ import unicodedata
 from dataclasses import dataclass, replace
 from typing import Literal
 
-from envlink._util import INVISIBLE_CHARS as _INVISIBLE
+from envlink.core.util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import FieldError
 
 Unit = Literal["day", "month", "year"]
@@ -62,7 +62,7 @@ class Period:
         First and last day of the window, both inclusive. ``None`` when the text is
         readable but does not resolve to one window (see ``flags`` and ``notes``).
     precision : {'day', 'month', 'season', 'year', 'years'} or None
-        The unit the text was written in (DESIGN.md §4): a day or day range is
+        The unit the text was written in (docs/locate-periods.md): a day or day range is
         ``'day'``; a month or whole-month range ``'month'``; a season ``'season'``; one
         calendar year ``'year'``; a range over several years ``'years'``. Kept for
         unresolved periods too (``05/06/2011`` is ``'day'`` even before the order is known).

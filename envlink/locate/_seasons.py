@@ -220,11 +220,13 @@ def _named_season(
             f"{readings[side][0]}..{readings[side][1]})" for side in ("boreal", "austral")
         )
         note = (f"{text.strip()!r} at {where} reads as {both}; write 'austral' or 'boreal', "
-                "or say how plain seasons are read (plain_season_south)")
+                "or say how plain seasons are read at southern sites (plain_season_south='austral' "
+                "or 'boreal'; --plain-season-south on the command line)")
         return SeasonReading(None, None, ("ambiguous_season",), (note,))
     start, end = readings[chosen]
     why = ("for a northern site" if hemisphere == "north"
-           else f"for a southern site (plain_season_south={plain_south!r})")
+           else f"for a southern site (plain_season_south={plain_south!r}; "
+                f"--plain-season-south {plain_south} on the command line)")
     note = (f"{text.strip()!r} read as the {chosen} {word} "
             f"({month_label(SEASON_CODES[tables[chosen][word]])}) {why}")
     return SeasonReading(start, end, (flag,), (note,))

@@ -11,7 +11,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from envlink._util import INVISIBLE_CHARS as _INVISIBLE
+from envlink.core.util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 from envlink.locate.gazetteer import Gazetteer
 from envlink.tables import cell_text

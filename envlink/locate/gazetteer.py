@@ -1,11 +1,13 @@
 """Site names to coordinates (points) or regions (polygons) through a user gazetteer.
 
 A gazetteer is the user's own list of places: a CSV with a name column and
-coordinates (in any form :mod:`envlink.locate.coords` reads), a GeoPackage /
-shapefile / GeoJSON of points or polygons, or a (Geo)DataFrame. A name is looked
-up exactly, then case- and accent-insensitively, then fuzzily (rapidfuzz
-``token_sort_ratio`` on the normalised names); two fuzzy candidates within a margin
-of each other are reported as ambiguous and never picked.
+coordinates (in any form :mod:`envlink.locate.coords` reads) or WKT points and
+polygons, a GeoPackage / shapefile / GeoJSON of points or polygons, or a
+(Geo)DataFrame. Every source is read alike: polygons are regions, and an aliases
+column (names separated by ``;`` or ``|``) gives each place other names it is
+found by. A name is looked up exactly, then case- and accent-insensitively, then
+fuzzily (rapidfuzz ``token_sort_ratio`` on the normalised names); two fuzzy
+candidates within a margin of each other are reported as ambiguous and never picked.
 """
 
 from __future__ import annotations
@@ -21,7 +23,7 @@ from typing import Literal
 
 import pandas as pd
 
-from envlink._util import INVISIBLE_CHARS as _INVISIBLE
+from envlink.core.util import INVISIBLE_CHARS as _INVISIBLE
 from envlink.errors import InputError
 from envlink.locate._gazetteer_read import (
     _GEO_SUFFIXES,
@@ -29,11 +31,14 @@ from envlink.locate._gazetteer_read import (
     _entries_from_table,
     _Entry,
 )
+from envlink.locate._gazetteer_read import ALIAS_COLUMNS as ALIAS_COLUMNS
 from envlink.locate._gazetteer_read import COORDS_COLUMNS as COORDS_COLUMNS
 from envlink.locate._gazetteer_read import LAT_COLUMNS as LAT_COLUMNS
 from envlink.locate._gazetteer_read import LON_COLUMNS as LON_COLUMNS
 from envlink.locate._gazetteer_read import NAME_COLUMNS as NAME_COLUMNS
 from envlink.locate._gazetteer_read import PRECISION_COLUMNS as PRECISION_COLUMNS
+from envlink.locate._gazetteer_read import WKT_COLUMNS as WKT_COLUMNS
+from envlink.locate._polygons import DEGENERATE
 
 __all__ = ["Gazetteer", "Match", "SiteNameError", "read_gazetteer", "normalise_name"]
 
@@ -66,7 +71,10 @@ class SiteNameError(InputError):
         self.value = value
         self.reason = reason
         self.code = code
-        super().__init__(f"site {value!r}: {reason}")
+        super().__init__(value, reason, code)  # all three in args: pickles
+
+    def __str__(self) -> str:
+        return f"site {self.value!r}: {self.reason}"
 
 
 @dataclass(frozen=True)
@@ -147,8 +155,13 @@ class Gazetteer:
         self._exact: dict[str, list[_Entry]] = {}
         self._folded: dict[str, list[_Entry]] = {}
         for entry in self.entries:
-            self._exact.setdefault(_plain_name(entry.name), []).append(entry)
-            self._folded.setdefault(normalise_name(entry.name), []).append(entry)
+            for known in (entry.name, *entry.aliases):  # a place is found by each of its names
+                found = self._exact.setdefault(_plain_name(known), [])
+                if entry not in found:
+                    found.append(entry)
+                folded = self._folded.setdefault(normalise_name(known), [])
+                if entry not in folded:
+                    folded.append(entry)
         self._keys = list(self._folded)
 
     def __len__(self) -> int:
@@ -247,8 +260,15 @@ class Gazetteer:
                 cands, ("ambiguous_site_name",), math.nan, (note,),
             )
         entry, score = places[0]
+        if entry.problem is not None:
+            raise SiteNameError(query, f"{entry.problem}; fix it in {self.source}, or give the "
+                                "site's coordinates.", DEGENERATE)
         flags = list(entry.flags)
-        notes: list[str] = []
+        notes: list[str] = [f"site {query!r}: the polygon of {entry.name!r} {entry.note}."] if entry.note else []
+        alias = next((a for a in entry.aliases if normalise_name(a) == normalise_name(query)
+                      and normalise_name(entry.name) != normalise_name(query)), None)
+        if alias is not None and method != "fuzzy":
+            notes.append(f"site {query!r}: matched {entry.name!r} by its alias {alias!r}.")
         if method == "casefold":
             flags.insert(0, "site_name_casefold")
             notes.append(f"site {query!r}: matched {entry.name!r} ignoring case and accents.")
@@ -261,7 +281,7 @@ class Gazetteer:
                 "it was kept as given, but a region crossing ±180° must be split there into a "
                 "MultiPolygon to mean the small region."
             )
-        elif entry.flags:
+        elif entry.flags and not entry.note:
             notes.append(
                 f"site {query!r}: the gazetteer's coordinates for {entry.name!r} were "
                 f"flagged {', '.join(entry.flags)}."
@@ -289,6 +309,9 @@ def read_gazetteer(
     lon_col: str | None = None,
     coords_col: str | None = None,
     precision_col: str | None = None,
+    wkt_col: str | None = None,
+    aliases_col: str | None = None,
+    repair_polygons: bool = True,
 ) -> Gazetteer:
     """Read a gazetteer of named sites (points or polygons).
 
@@ -297,13 +320,26 @@ def read_gazetteer(
     source : path-like or DataFrame or GeoDataFrame
         A CSV / TSV / Excel / Parquet table with a name column and coordinates
         (``lat``/``lon`` columns, or one ``coords`` column, in any form
-        :func:`envlink.parse_coordinates` reads); a GeoPackage, shapefile or GeoJSON
-        of points or polygons (read with geopandas' pyogrio engine; reprojected to
-        WGS84 lon/lat if it has another CRS); or a DataFrame / GeoDataFrame.
-    name_col, lat_col, lon_col, coords_col, precision_col : str, optional
+        :func:`envlink.parse_coordinates` reads, or a ``wkt`` column of WKT points and
+        polygons in WGS84 lon/lat); a GeoPackage, shapefile or GeoJSON of points or
+        polygons (read with geopandas' pyogrio engine; reprojected to WGS84 lon/lat if
+        it has another CRS); or a DataFrame / GeoDataFrame. A polygon is a region
+        whichever the source: the site gets the polygon, a point inside it and, as its
+        precision, the radius of the circle of equal area. A point written both as
+        coordinates and as WKT takes the written coordinates (and the precision their
+        digits imply).
+    name_col, lat_col, lon_col, coords_col, precision_col, wkt_col, aliases_col : str, optional
         Column names; by default they are recognised among common names
         (``site``/``name``..., ``lat``/``latitude``..., ``lon``/``longitude``...,
-        ``coords``..., ``precision_km``), case-insensitively.
+        ``coords``..., ``precision_km``, ``wkt``/``geometry``...,
+        ``aliases``/``alias``...), case-insensitively. An aliases cell holds other
+        names of the place, separated by ``;`` or ``|``; a site is found by any of them.
+    repair_polygons : bool, default True
+        Repair a polygon that is not valid (one that crosses itself) with shapely's
+        ``make_valid``, flagging its rows ``polygon_repaired``; when False, such a
+        polygon is not used. A polygon with no area is never used. A row naming a
+        place that is not used is rejected (``site_polygon_degenerate``, the reason in
+        its note); the gazetteer's other places stay usable.
 
     Returns
     -------
@@ -331,9 +367,11 @@ def read_gazetteer(
     if isinstance(source, pd.DataFrame):
         label = "(table)"
         if gpd is not None and isinstance(source, gpd.GeoDataFrame):
-            return _nonempty(_entries_from_geo(source, label, name_col, precision_col), label)
+            return _nonempty(_entries_from_geo(source, label, name_col, precision_col, aliases_col,
+                                               repair_polygons), label)
         return _nonempty(
-            _entries_from_table(source, label, name_col, lat_col, lon_col, coords_col, precision_col),
+            _entries_from_table(source, label, name_col, lat_col, lon_col, coords_col, precision_col,
+                                wkt_col, aliases_col, repair_polygons),
             label,
         )
     path = Path(source)
@@ -345,11 +383,13 @@ def read_gazetteer(
             gdf = gpd.read_file(path, engine="pyogrio")  # type: ignore[union-attr]
         except Exception as exc:  # noqa: BLE001 - any reader failure is the user's file
             raise InputError(f"Cannot read gazetteer {label}: {exc}") from exc
-        return _nonempty(_entries_from_geo(gdf, label, name_col, precision_col), label)
+        return _nonempty(_entries_from_geo(gdf, label, name_col, precision_col, aliases_col, repair_polygons),
+                         label)
     from envlink.tables import read_table
 
     table = read_table(path, as_text=True)
     return _nonempty(
-        _entries_from_table(table, label, name_col, lat_col, lon_col, coords_col, precision_col),
+        _entries_from_table(table, label, name_col, lat_col, lon_col, coords_col, precision_col,
+                            wkt_col, aliases_col, repair_polygons),
         label,
     )

@@ -2,29 +2,37 @@
 
 The design keeps the moderator columns apart from the intercept (which the sums
 imply), so a huge array given by the user is never copied to add a column of ones.
-Rows with a missing effect, variance or moderator are dropped, counted and named;
+A table's rows are chosen by the model frame (:mod:`envlink.metareg.frame`); array
+rows with a missing effect, variance or moderator are dropped, counted and named, and
 a non-positive or infinite variance is an error naming the row.
 """
 
 from __future__ import annotations
 
-import re
 import warnings
-from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
-from envlink._util import did_you_mean
-from envlink.errors import InputError, ModelError
+from envlink.errors import InputError, InvalidValueError, ModelError
+from envlink.metareg.degenerate import check_magnitudes
+from envlink.metareg.formula import (
+    INTERCEPT,
+    _py,
+    category_columns,
+    formula_problem,
+    formula_text,
+    formula_variables,
+    rows_text,
+)
 
-__all__ = ["Design", "design_from_frame", "design_from_arrays", "new_rows", "INTERCEPT",
-           "formula_variables", "category_columns", "rows_text"]
+if TYPE_CHECKING:
+    from envlink.metareg.frame import ModelFrame
 
-#: name of the intercept term in every output
-INTERCEPT = "intercept"
+__all__ = ["Design", "design_from_frame", "design_from_arrays", "new_rows", "check_variances",
+           "check_effects", "INTERCEPT", "formula_variables", "category_columns", "rows_text"]
 
 _CHECK_BLOCK = 1 << 16
 
@@ -51,6 +59,7 @@ class Design:
     groups: dict[str, np.ndarray] = field(default_factory=dict)
     keep: np.ndarray | None = None  # mask over the input rows (None: every row kept)
     all_labels: np.ndarray | None = None  # labels of every input row, in order
+    drop_reason: str = "missing effect, variance or moderator values"
 
     @property
     def k(self) -> int:
@@ -70,221 +79,40 @@ class Design:
         return y, v, X
 
 
-def _py(x: Any) -> Any:
-    """A plain Python scalar for messages (no ``np.int64(...)`` reprs)."""
-    return x.item() if isinstance(x, np.generic) else x
-
-
-def _formula_text(moderators: str | None, intercept: bool) -> str:
-    rhs = (moderators or "").strip()
-    if not rhs:
-        return "1" if intercept else "0"
-    return rhs if intercept else f"0 + {rhs}"
-
-
-def _default_index(index: Any) -> bool:
-    """Whether row labels are the positions 0, 1, ... (so rows need no label besides their number)."""
-    if index is None:
-        return True
-    a = np.asarray(index)
-    return a.dtype.kind in "iu" and np.array_equal(a, np.arange(a.shape[0]))
-
-
-def rows_text(positions: Sequence[int] | np.ndarray, index: Any = None, *, limit: int = 5) -> str:
-    """Rows by number counted from 1 (the first data row is row 1), as every envlink message counts.
-
-    ``positions`` are 0-based positions in the input; ``index`` holds the input's
-    row labels, shown beside the numbers when they are not simply 0, 1, ....
-
-    Examples
-    --------
-    >>> rows_text([0]), rows_text([71, 72, 73])
-    ('row 1', 'rows 72, 73, 74')
-    >>> rows_text([0, 2], ["a", "b", "c"])
-    "rows 1, 3 (index 'a', 'c')"
-    >>> rows_text(range(7))
-    'rows 1, 2, 3, 4, 5 and 2 more'
-    """
-    pos = [int(i) for i in positions]
-    shown = pos[:limit]
-    text = ("row " if len(pos) == 1 else "rows ") + ", ".join(str(i + 1) for i in shown)
-    if not _default_index(index):
-        labels = np.asarray(index)
-        text += " (index " + ", ".join(repr(_py(labels[i])) for i in shown) + ")"
-    if len(pos) > limit:
-        text += f" and {len(pos) - limit} more"
-    return text
-
-
-_ANSI = re.compile(r"\x1b\[[0-9;]*[A-Za-z]")
-_MARKED = re.compile(r"\u29db(.*?)\u29da", re.S)
-
-
-def _formula_problem(exc: Exception, moderators: str | None, intercept: bool) -> str:
-    """formulaic's complaint in plain text: the reason, then the formula with a caret under the fault.
-
-    formulaic marks the faulty part with terminal colour codes between two brackets;
-    they are removed, and a line of ``^`` under the user's own formula points at it.
-    """
-    text = _ANSI.sub("", str(exc))
-    reason, _, shown = text.partition("\n\n")
-    reason = _MARKED.sub(r"\1", reason).strip().replace("insuffient", "insufficient")
-    reason = reason[:1].lower() + reason[1:] if reason[:2] != reason[:2].upper() else reason
-    if reason and reason[-1] not in ".]":
-        reason += "."
-    m = _MARKED.search(shown)
-    user = moderators or ""
-    if m is None:
-        return reason
-    lead = len(user) - len(user.lstrip())
-    start = m.start() - (0 if intercept or not user.strip() else len("0 + ")) + lead
-    token = m.group(1)
-    if not 0 <= start < len(user) or not token:
-        return f"{reason} (at {token!r})"
-    width = max(1, min(len(token), len(user) - start))
-    return f"at character {start + 1} ({token!r}): {reason}\n    {user}\n    {' ' * start}{'^' * width}"
-
-
-def formula_variables(moderators: str | None, *, intercept: bool = True) -> list[str]:
-    """The variables (columns) a moderator formula needs; a bad formula is an :class:`InputError`.
-
-    The formula is a right-hand side only (the effect column is given apart); the
-    error quotes it and points at the problem with a caret, in plain text.
-
-    Examples
-    --------
-    >>> formula_variables("sst_anom + C(method) + I(depth ** 2)")
-    ['depth', 'method', 'sst_anom']
-    >>> print(formula_variables("sst_anom +"))
-    Traceback (most recent call last):
-    ...
-    envlink.errors.InputError: Cannot parse the moderator formula 'sst_anom +': at character 10 ('+'): operator `+` has insufficient arguments and/or is misplaced.
-        sst_anom +
-                 ^
-    """
-    from formulaic import Formula, SimpleFormula
-    from formulaic.errors import FormulaicError
-
-    text = _formula_text(moderators, intercept)
-    try:
-        formula = Formula(text)
-    except FormulaicError as exc:
-        raise InputError(f"Cannot parse the moderator formula {moderators!r}: "
-                         f"{_formula_problem(exc, moderators, intercept)}") from None
-    if not isinstance(formula, SimpleFormula):
-        raise InputError(
-            f"The moderator formula {moderators!r} must be a right-hand side only, such as "
-            "'sst_anom + C(method)': the effect column is given apart (effect= / --effect), "
-            "so '~' and '|' have no place in it."
-        )
-    return sorted(str(n) for n in formula.required_variables)
-
-
-def category_columns(moderators: str | None, columns: Sequence[str]) -> set[str]:
-    """Columns of ``columns`` written ``C(col ...)`` in the formula (categories by the user's choice).
-
-    Examples
-    --------
-    >>> sorted(category_columns("depth + C(zone, Treatment('reef')) + C( year)", ["depth", "zone", "year"]))
-    ['year', 'zone']
-    """
-    text = moderators or ""
-    return {c for c in columns if re.search(rf"\bC\(\s*{re.escape(str(c))}\s*[,)]", text)}
-
-
-def _is_text(s: pd.Series) -> bool:
-    return bool(pd.api.types.is_object_dtype(s) or pd.api.types.is_string_dtype(s))
-
-
-def _check_text_numbers(data: pd.DataFrame, needed: list[str], moderators: str | None) -> None:
-    """A text column of numbers used as a plain term would become one category per value: refuse."""
-    from envlink.tables import cell_text, parse_numbers
-
-    chosen = category_columns(moderators, needed)
-    for col in needed:
-        s = data[col]
-        if col in chosen or not _is_text(s):
-            continue
-        values, unreadable = parse_numbers(s)
-        ok = np.flatnonzero(np.isfinite(values))
-        if not ok.size:
-            continue  # words: a category, as the user will expect
-        i = int(ok[0])
-        bad = np.flatnonzero(unreadable)
-        fix = ""
-        if bad.size:
-            j = int(bad[0])
-            fix = (f"; {rows_text([j], data.index)} holds {cell_text(s.iloc[j])!r}, which is not "
-                   "a number (write a number or leave the cell blank)")
-        raise InputError(
-            f"Column {col!r} holds numbers written as text ({rows_text([i], data.index)} holds "
-            f"{cell_text(s.iloc[i])!r}), so the formula would make it a category with one level "
-            f"per value. Convert it to numbers first (envlink.tables.number_columns reads decimal "
-            f"commas and unicode minus signs){fix}; write C({col}) in the moderators if it is a "
-            "category."
-        )
-
-
-def design_from_frame(data: pd.DataFrame, *, effect: str, variance: str,
-                      moderators: str | None, intercept: bool,
-                      extra: dict[str, str | None]) -> Design:
-    """Build a :class:`Design` from a DataFrame and a formula.
+def design_from_frame(frame: ModelFrame, *, intercept: bool = True) -> Design:
+    """Build a :class:`Design` from a :class:`~envlink.metareg.frame.ModelFrame` (formulaic).
 
     Examples
     --------
     >>> import pandas as pd
+    >>> from envlink.metareg.frame import model_frame
     >>> df = pd.DataFrame({"e": [0.1, 0.3, None, 0.2], "v": [0.01, 0.02, 0.01, 0.03],
     ...                    "x": [1.0, 2.0, 3.0, 4.0]})
-    >>> d = design_from_frame(df, effect="e", variance="v", moderators="x",
-    ...                       intercept=True, extra={})
+    >>> d = design_from_frame(model_frame(df, effect="e", variance="v", moderators="x"))
     >>> d.k, d.names, d.n_dropped
     (3, ['intercept', 'x'], 1)
     """
     from formulaic import model_matrix
     from formulaic.errors import FormulaicError
 
-    if not isinstance(data, pd.DataFrame):
-        raise InputError(f"fit(data=...) must be a pandas DataFrame; got {type(data).__name__}.")
-    text = _formula_text(moderators, intercept)
-    needed = formula_variables(moderators, intercept=intercept)
-    wanted = [effect, variance, *needed, *[c for c in extra.values() if c]]
-    for col in wanted:
-        if col not in data.columns:
-            called = col in needed and re.search(rf"(?<![\w.]){re.escape(col)}\s*\(", moderators or "")
-            what = (f"{col!r} in the moderator formula {moderators!r} is neither a column of the "
-                    "table nor a function the formula knows." if called else
-                    f"Column {col!r} is not in the table.")
-            raise InputError(
-                what + did_you_mean(col, data.columns)
-                + f" Available columns: {', '.join(map(str, data.columns))}."
-            )
-    _check_text_numbers(data, needed, moderators)
-    index = np.asarray(data.index)
-    y = _numeric(data[effect], effect, index)
-    v = _numeric(data[variance], variance, index)
-    missing = np.isnan(y) | np.isnan(v)
-    for col in needed:
-        missing |= data[col].isna().to_numpy()
-    for col in [c for c in extra.values() if c]:
-        missing |= data[col].isna().to_numpy()
-    keep = ~missing
-    sub = data.loc[keep]
-    yk = y[keep]
-    vk = v[keep]
+    moderators = frame.moderators
+    sub = frame.data
+    keep = frame.included
+    index = frame.index if frame.index is not None else np.arange(keep.shape[0])
     rows = np.flatnonzero(keep)  # input positions of the kept rows
-    labels = index[keep]
-    _check_variances(vk, rows, index, variance)
-    _check_finite(yk, rows, index, effect)
-    try:
+    try:  # formulaic evaluates the user's Python: whatever it raises is the formula's fault
         with warnings.catch_warnings():
             warnings.simplefilter("error")
-            mm = model_matrix(text, sub, na_action="raise")
+            mm = model_matrix(formula_text(moderators, intercept), sub, na_action="raise")
+            cols = [str(c) for c in mm.columns]
+            Xdf = pd.DataFrame(np.asarray(mm, dtype=np.float64), columns=cols)
     except (FormulaicError, Warning) as exc:
         raise InputError(f"Cannot build the moderators from {moderators!r}: "
-                         f"{_formula_problem(exc, moderators, intercept)}") from None
-    cols = [str(c) for c in mm.columns]
+                         f"{formula_problem(exc, moderators, intercept)}") from None
+    except Exception as exc:  # noqa: BLE001 - e.g. I(x.__class__), a bad Treatment() level
+        raise InputError(f"Cannot build the moderators from {moderators!r}: "
+                         f"{type(exc).__name__}: {formula_problem(exc, moderators, intercept)}") from None
     has_int = "Intercept" in cols
-    Xdf = pd.DataFrame(np.asarray(mm, dtype=np.float64), columns=cols)
     if has_int:
         Xdf = Xdf.drop(columns="Intercept")
     X = Xdf.to_numpy(dtype=np.float64)
@@ -298,43 +126,37 @@ def design_from_frame(data: pd.DataFrame, *, effect: str, variance: str,
             )
     names = ([INTERCEPT] if has_int else []) + list(Xdf.columns)
     dropped = [_py(x) for x in index[~keep]]
-    groups = {role: sub[col].to_numpy() for role, col in extra.items() if col}
-    return Design(yk, vk, X, has_int, names, labels, len(dropped), dropped, mm.model_spec, groups,
-                  keep, index)
+    groups = {role: sub[col].to_numpy() for role, col in frame.groups.items()}
+    y = sub[frame.effect].to_numpy(dtype=np.float64)
+    v = sub[frame.variance].to_numpy(dtype=np.float64)
+    d = Design(y, v, X, has_int, names, index[keep], len(dropped), dropped, mm.model_spec,
+               groups, keep, index, frame.reason())
+    check_magnitudes(d, frame.effect, frame.variance)  # overflows named before any fitting
+    return d
 
 
-def _numeric(s: pd.Series, name: str, index: np.ndarray) -> np.ndarray:
-    """A column as float64; numbers written as text are read as :func:`envlink.tables.parse_numbers` reads them."""
-    from envlink.tables import cell_text, parse_numbers
-
-    out, bad = parse_numbers(s)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[0])
-        raise InputError(
-            f"Column {name!r} must hold numbers; {rows_text([i], index)} holds "
-            f"{cell_text(s.iloc[i])!r} ({int(bad.sum())} such row(s)). Write a number or leave "
-            "the cell blank (blank rows are left out of the fit)."
-        )
-    return out
-
-
-def _check_variances(v: np.ndarray, rows: np.ndarray, index: Any, name: str) -> None:
+def check_variances(v: np.ndarray, rows: np.ndarray, index: Any, name: str) -> None:
+    """Refuse a sampling variance that is zero, negative or infinite, naming its row."""
     bad = ~(np.isfinite(v) & (v > 0))
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise ModelError(
+        raise InvalidValueError(
             f"Sampling variance {name!r} must be positive and finite; {rows_text([rows[i]], index)} "
             f"has {float(v[i])!r} ({int(bad.sum())} such row(s)). Fix or remove these rows; a zero "
             "variance usually means a zero cell that needs a continuity correction."
         )
 
 
-def _check_finite(y: np.ndarray, rows: np.ndarray, index: Any, name: str) -> None:
+def check_effects(y: np.ndarray, rows: np.ndarray, index: Any, name: str) -> None:
+    """Refuse an infinite effect, naming its row (a missing one is left out before)."""
     bad = ~np.isfinite(y)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise ModelError(f"Effect {name!r} must be finite; {rows_text([rows[i]], index)} has "
-                         f"{float(y[i])!r}.")
+        raise InvalidValueError(
+            f"Effect {name!r} must be finite; {rows_text([rows[i]], index)} has {float(y[i])!r} "
+            f"({int(bad.sum())} such row(s)). Fix or remove these rows; a blank effect is left "
+            "out of the fit."
+        )
 
 
 def _is_dask(a: object) -> bool:
@@ -396,11 +218,11 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
         badv = ~nan & ~((vb > 0) & np.isfinite(vb))
         if badv.any():
             i = int(np.flatnonzero(badv)[0])
-            _check_variances(vb[i:i + 1], np.array([i + lo]), None, "v")
+            check_variances(vb[i:i + 1], np.array([i + lo]), None, "v")
         bady = ~nan & ~np.isfinite(yb)
         if bady.any():
             i = int(np.flatnonzero(bady)[0])
-            _check_finite(yb[i:i + 1], np.array([i + lo]), None, "y")
+            check_effects(yb[i:i + 1], np.array([i + lo]), None, "y")
         if X.shape[1]:
             badx = ~nan & ~np.isfinite(xb).all(axis=1)
             if badx.any():
@@ -420,8 +242,10 @@ def design_from_arrays(y: Any, v: Any, X: Any, *, intercept: bool,
         labels = np.flatnonzero(keep)
         gr = {r: g[keep] for r, g in gr.items()}
     full = ([INTERCEPT] if intercept else []) + names
-    return Design(y, v, X, intercept, full, labels, int(dropped.size), dropped.tolist(), None, gr,
-                  keep, None)
+    d = Design(y, v, X, intercept, full, labels, int(dropped.size), dropped.tolist(), None, gr,
+               keep, None)
+    check_magnitudes(d)  # overflows named before any fitting
+    return d
 
 
 def _dask_design(y: Any, v: Any, X: Any, *, intercept: bool,
@@ -478,7 +302,7 @@ def new_rows(design_spec: Any, newdata: Any, *, intercept: bool, m: int) -> np.n
                 mm = design_spec.get_model_matrix(newdata, na_action="raise")
         except Exception as exc:  # formulaic raises several types and warnings
             raise InputError(f"Cannot build moderators for predict(): "
-                             f"{_formula_problem(exc, None, intercept)}") from None
+                             f"{formula_problem(exc, None, intercept)}") from None
         cols = [str(c) for c in mm.columns]
         arr = np.asarray(mm, dtype=np.float64)
         if "Intercept" in cols:

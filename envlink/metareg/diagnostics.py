@@ -16,7 +16,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
-from envlink.errors import EnvlinkWarning, InputError, ModelError, param_error
+from envlink.errors import DiagnosticWarning, InputError, ModelError, param_error, user_stacklevel
+from envlink.metareg.vocabulary import ESTIMATORS
 
 __all__ = [
     "EggerResult",
@@ -28,10 +29,6 @@ __all__ = [
 ]
 
 Side = Literal["left", "right"]
-
-
-class DiagnosticWarning(EnvlinkWarning):
-    """A diagnostic finished, but its result needs care (see the message)."""
 
 
 def _arrays(y: ArrayLike, v: ArrayLike, caller: str, min_k: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
@@ -76,7 +73,7 @@ def _pool(y: NDArray[np.float64], v: NDArray[np.float64], method: str) -> tuple[
             f"REML pooling did not converge in 200 Fisher-scoring steps (tau² = {tau2:.6g}); "
             "try tau2_method='DL'.",
             DiagnosticWarning,
-            stacklevel=3,
+            stacklevel=user_stacklevel(),
         )
     w = 1.0 / (v + tau2)
     sw = w.sum()
@@ -210,6 +207,14 @@ class TrimFillResult:
         return out
 
 
+def _pooling_estimator(name: Any, caller: str) -> Any:
+    """The canonical label of ``DL`` or ``REML`` in any spelling the estimators' registry reads."""
+    label = ESTIMATORS.parse(name).label() if ESTIMATORS.accepts(name) else None
+    if label not in ("DL", "REML"):  # the two estimators offered for the pooling
+        raise param_error("tau2_method", caller, "'DL' or 'REML'", name)
+    return label
+
+
 def _rank_estimate(dev: NDArray[np.float64], estimator: str) -> tuple[int, float]:
     """k0 from centred deviations, missing studies assumed on the left."""
     k = dev.size
@@ -257,7 +262,8 @@ def trim_and_fill(
         left.
     estimator : {"L0", "R0"}, default "L0"
     tau2_method : {"DL", "REML"}, default "DL"
-        tau² estimator of the random-effects pooling.
+        tau² estimator of the random-effects pooling (any spelling that
+        :data:`~envlink.metareg.vocabulary.ESTIMATORS` reads, e.g. ``"dersimonian-laird"``).
     max_iter : int, default 100
         Iteration cap; if reached, ``converged`` is False and a
         :class:`DiagnosticWarning` says so.
@@ -279,8 +285,7 @@ def trim_and_fill(
         raise param_error("side", caller, "None, 'left' or 'right'", side)
     if estimator not in ("L0", "R0"):
         raise param_error("estimator", caller, "'L0' or 'R0'", estimator)
-    if tau2_method not in ("DL", "REML"):
-        raise param_error("tau2_method", caller, "'DL' or 'REML'", tau2_method)
+    tau2_method = _pooling_estimator(tau2_method, caller)
     if not (isinstance(max_iter, int) and max_iter >= 1):
         raise param_error("max_iter", caller, "a positive integer", max_iter)
     if not (0 < level < 1):
@@ -312,7 +317,7 @@ def trim_and_fill(
             f"trim_and_fill did not settle on k0 within {max_iter} iterations (last k0 = {k0}); "
             "the result is from the last iteration. Raise max_iter or treat k0 as uncertain.",
             DiagnosticWarning,
-            stacklevel=2,
+            stacklevel=user_stacklevel(),
         )
     trimmed = order[k - k0 :]
     fill_y = 2.0 * mu - work[trimmed]

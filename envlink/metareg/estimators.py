@@ -7,19 +7,20 @@ docs/methods.md.
 
 from __future__ import annotations
 
+from collections.abc import Generator
 from dataclasses import dataclass, field
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
 from scipy import optimize
 
 from envlink.errors import ModelError
-from envlink.metareg._kernels import Sums, weighted_sums
+from envlink.metareg._kernels import Sums, weighted_sums, weighted_sums_multi
+from envlink.metareg.vocabulary import ESTIMATORS, resolve
 
-__all__ = ["Method", "GLS", "gls", "estimate_tau2", "solve_q", "TauFit", "METHODS", "checked_sums"]
-
-Method = Literal["REML", "ML", "DL", "PM", "HE", "SJ"]
-METHODS = ("REML", "ML", "DL", "PM", "HE", "SJ")
+__all__ = ["GLS", "gls", "estimate_tau2", "solve_q", "tau2_scale", "TauFit", "checked_sums", "tau2_reml",
+           "tau2_ml", "tau2_dl", "tau2_pm", "tau2_he", "tau2_sj",
+           "Steps", "fisher_steps", "run_steps", "dl_start"]
 
 
 @dataclass
@@ -57,6 +58,14 @@ def gls(s: Sums, tau2: float) -> GLS:
     yPPy = s.syy2 - 2.0 * beta @ s.b2 + beta @ s.B @ beta
     trPP = s.sw2 - 2.0 * np.trace(Ainv @ s.C) + np.trace(AB @ AB)
     logdet = 2.0 * float(np.sum(np.log(np.diag(L))))
+    if s.yshift:  # sums of y - c with an intercept: only the intercept moves
+        beta = beta.copy()
+        beta[0] += s.yshift
+    if s.shift is not None:  # sums of x - c: beta = S'beta_c, cov = S' cov_c S (det S = 1)
+        St = np.eye(A.shape[0])
+        St[0, 1:] = -s.shift
+        beta = St @ beta
+        Ainv = St @ Ainv @ St.T
     return GLS(tau2, beta, Ainv, max(float(yPy), 0.0), float(trP), max(float(yPPy), 0.0),
                float(trPP), logdet, s.sw, s.sw2, s.slog)
 
@@ -77,35 +86,57 @@ class TauFit:
     fit: GLS | None = None  # GLS at the estimate when the estimator computed it
 
 
-def loglik(g: GLS, k: int, p: int, method: str) -> float:
-    """Log-likelihood (ML) or restricted log-likelihood (REML) at ``g.tau2``."""
-    if method == "ML":
+def tau2_scale(d: Any, g0: GLS) -> float:
+    """The scale a tau² step is judged against near 0: the typical sampling variance.
+
+    ``(k − p) / tr P₀`` (docs/methods.md, "Heterogeneity"); 1 when undefined. A step
+    has converged when ``|Δτ²| ≤ tol · max(τ², scale)``: relative to τ², and relative to
+    the sampling variances where τ² is near 0 (an absolute floor would stop early when
+    the variances are tiny).
+    """
+    scale = (d.k - d.p) / g0.trP if g0.trP > 0 else 1.0
+    return scale if np.isfinite(scale) and scale > 0 else 1.0
+
+
+def loglik(g: GLS, k: int, p: int, restricted: bool) -> float:
+    """Restricted (REML) or full (ML) log-likelihood at ``g.tau2``."""
+    if not restricted:
         return -0.5 * (k * np.log(2 * np.pi) + g.slog + g.yPy)
     return -0.5 * ((k - p) * np.log(2 * np.pi) + g.slog + g.logdetA + g.yPy)
 
 
-def _score(g: GLS, method: str) -> float:
+def _score(g: GLS, restricted: bool) -> float:
     """Derivative of the (restricted) log-likelihood with respect to tau²."""
-    return 0.5 * (g.yPPy - (g.sw if method == "ML" else g.trP))
+    return 0.5 * (g.yPPy - (g.trP if restricted else g.sw))
 
 
-def _score_step(g: GLS, method: str) -> float:
-    if method == "ML":
+def _score_step(g: GLS, restricted: bool) -> float:
+    if not restricted:
         return (g.yPPy - g.sw) / g.sw2
     return (g.yPPy - g.trP) / g.trPP
 
 
-def _fisher(d: Any, method: str, start: float, tol: float, max_iter: int,
-            use_numba: bool) -> TauFit:
-    k, p = d.k, d.p
+#: the steps of an iterative solver: it yields the tau² values it needs next and is sent
+#: the fits (:class:`GLS`) there; its return value is the result. Several solvers can so
+#: share one pass over the data (:mod:`envlink.metareg.lockstep`).
+Steps = Generator[list[float], list[GLS], Any]
+
+
+def fisher_steps(k: int, p: int, name: str, restricted: bool, start: float, tol: float,
+                 max_iter: int, scale: float = 1.0) -> Generator[list[float], list[GLS], TauFit]:
+    """Fisher scoring (with secant steps and step halving) for REML or ML, as :data:`Steps`.
+
+    Converged when ``|Δτ²| ≤ tol · max(τ², scale)``, ``scale`` the typical sampling
+    variance (:func:`tau2_scale`).
+    """
     t = max(start, 0.0)
-    g = gls(sums_at(d, t, use_numba), t)
-    ll = loglik(g, k, p, method)
+    (g,) = yield [t]
+    ll = loglik(g, k, p, restricted)
     msgs: list[str] = []
     prev: tuple[float, float] | None = None  # (tau², score) of the previous iterate
     for it in range(1, max_iter + 1):
-        step = _score_step(g, method)
-        sc = _score(g, method)
+        step = _score_step(g, restricted)
+        sc = _score(g, restricted)
         if t <= 0.0 and step <= 0.0:
             return TauFit(0.0, True, it, msgs, g)
         if prev is not None and t != prev[0] and sc != prev[1]:
@@ -119,24 +150,41 @@ def _fisher(d: Any, method: str, start: float, tol: float, max_iter: int,
         if new < 0.0:  # truncate at the boundary; halving below keeps the likelihood rising
             step = -t
             new = 0.0
-        g_new = gls(sums_at(d, new, use_numba), new)
-        ll_new = loglik(g_new, k, p, method)
+        (g_new,) = yield [new]
+        ll_new = loglik(g_new, k, p, restricted)
         tries = 0
         while ll_new < ll - 1e-12 * max(1.0, abs(ll)) and tries < 30:  # halve on decrease
             step /= 2.0
             new = t + step
-            g_new = gls(sums_at(d, new, use_numba), new)
-            ll_new = loglik(g_new, k, p, method)
+            (g_new,) = yield [new]
+            ll_new = loglik(g_new, k, p, restricted)
             tries += 1
         change = abs(new - t)
         t, g, ll = new, g_new, ll_new
-        if change <= tol * max(1.0, t):
+        if change <= tol * max(scale, t):
             return TauFit(t, True, it, msgs, g)
     msgs.append(
-        f"{method} did not converge in {max_iter} iterations (last tau² = {t:.6g}); "
+        f"{name} did not converge in {max_iter} iterations (last tau² = {t:.6g}); "
         "increase max_iter, or use method='DL' or 'PM', which need no iteration of this kind."
     )
     return TauFit(t, False, max_iter, msgs, g)
+
+
+def run_steps(d: Any, steps: Steps, use_numba: bool = True) -> Any:
+    """Run one solver's :data:`Steps` alone, one pass over ``d`` per request."""
+    try:
+        ts = next(steps)
+        while True:
+            ss = weighted_sums_multi(d.y, d.v, d.X, d.intercept, ts, None, use_numba=use_numba)
+            ts = steps.send([gls(s, t) for s, t in zip(ss, ts, strict=True)])
+    except StopIteration as stop:
+        return stop.value
+
+
+def _fisher(d: Any, name: str, restricted: bool, start: float, tol: float, max_iter: int,
+            use_numba: bool, scale: float = 1.0) -> TauFit:
+    return run_steps(d, fisher_steps(d.k, d.p, name, restricted, start, tol, max_iter, scale),
+                     use_numba)
 
 
 def solve_q(d: Any, target: float, *, tol: float, max_iter: int, use_numba: bool = True,
@@ -147,6 +195,7 @@ def solve_q(d: Any, target: float, *, tol: float, max_iter: int, use_numba: bool
     left (the derivative is ``-y'PPy``) with a bracketing fallback.
     """
     g = g0 if g0 is not None else gls(sums_at(d, 0.0, use_numba), 0.0)
+    scale = tau2_scale(d, g)
     if g.yPy <= target:
         return 0.0, True, 0
     lo, t = 0.0, 0.0
@@ -163,7 +212,7 @@ def solve_q(d: Any, target: float, *, tol: float, max_iter: int, use_numba: bool
         lo = new
         change = abs(new - t)
         t, g = new, g_new
-        if change <= tol * max(1.0, t):
+        if change <= tol * max(scale, t):
             return t, True, it
     return t, False, max_iter
 
@@ -199,17 +248,77 @@ def _ols_pass(d: Any) -> tuple[np.ndarray, np.ndarray, float, float, np.ndarray]
     return XtX, Xty, yy, sv, XtVX
 
 
+def dl_start(k: int, p: int, g0: GLS) -> float:
+    """DerSimonian-Laird in its meta-regression form (also the start of REML and ML)."""
+    return max(0.0, (g0.yPy - (k - p)) / g0.trP) if g0.trP > 0 else 0.0
+
+
+def _dl(d: Any, g0: GLS) -> float:
+    return dl_start(d.k, d.p, g0)
+
+
+def tau2_reml(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """REML by Fisher scoring (with secant steps) from DerSimonian-Laird."""
+    return _fisher(d, "REML", True, _dl(d, g0), tol, max_iter, use_numba, tau2_scale(d, g0))
+
+
+def tau2_ml(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """ML by Fisher scoring (with secant steps) from DerSimonian-Laird."""
+    return _fisher(d, "ML", False, _dl(d, g0), tol, max_iter, use_numba, tau2_scale(d, g0))
+
+
+def tau2_dl(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """DerSimonian-Laird: ``max(0, (Q_E - (k - p)) / tr P0)``."""
+    return TauFit(_dl(d, g0), True, 0)
+
+
+def tau2_pm(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """Paule-Mandel: the tau² >= 0 solving ``y'P(tau²)y = k - p``."""
+    t, ok, it = solve_q(d, float(d.k - d.p), tol=tol, max_iter=max_iter, use_numba=use_numba,
+                        g0=g0)
+    msgs = [] if ok else [f"Paule-Mandel did not converge in {max_iter} iterations."]
+    return TauFit(t, ok, it, msgs)
+
+
+def _ols_rss(d: Any) -> tuple[float, float, float]:
+    """OLS residual sum of squares, ``Σ v`` and ``tr((X'X)^-1 X'VX)``."""
+    XtX, Xty, yy, sv, XtVX = _ols_pass(d)
+    XtXinv = np.linalg.inv(XtX)
+    rss = max(0.0, yy - Xty @ XtXinv @ Xty)
+    return rss, sv, float(np.trace(XtXinv @ XtVX))
+
+
+def tau2_he(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """Hedges: ``max(0, (e'e - (Σ v - tr((X'X)^-1 X'VX))) / (k - p))`` from OLS residuals."""
+    rss, sv, trv = _ols_rss(d)
+    t = (rss - (sv - trv)) / (d.k - d.p)
+    return TauFit(max(0.0, float(t)), True, 0)
+
+
+def tau2_sj(d: Any, *, g0: GLS, tol: float, max_iter: int, use_numba: bool) -> TauFit:
+    """Sidik-Jonkman: ``t0 · y'P(t0)y / (k - p)`` with ``t0 = e'e / k`` from OLS residuals."""
+    rss, _, _ = _ols_rss(d)
+    t0 = rss / d.k
+    if t0 <= 0.0:
+        return TauFit(0.0, True, 0, ["All residuals are zero; Sidik-Jonkman gives tau² = 0."])
+    q0 = gls(sums_at(d, t0, use_numba), t0).yPy
+    return TauFit(float(t0 * q0 / (d.k - d.p)), True, 1)
+
+
 def estimate_tau2(d: Any, method: str, *, tol: float = 1e-10, max_iter: int = 100,
                   use_numba: bool = True, g0: GLS | None = None) -> TauFit:
-    """Estimate tau² by one of :data:`METHODS`.
+    """Estimate tau² by one of the estimators of :data:`~envlink.metareg.vocabulary.ESTIMATORS`.
 
     Parameters
     ----------
     d : Design
         Effects, variances and moderators.
-    method : {"REML", "ML", "DL", "PM", "HE", "SJ"}
+    method : str
+        A name of :data:`~envlink.metareg.vocabulary.ESTIMATORS` (``"REML"``, ``"ML"``,
+        ``"DL"``, ``"PM"``, ``"HE"``, ``"SJ"`` or an alias, any case).
     tol, max_iter : float, int
-        Convergence on the relative change of tau² and the iteration limit.
+        Convergence on the change of tau² relative to ``max(tau², typical sampling
+        variance)`` (:func:`tau2_scale`) and the iteration limit.
     g0 : GLS, optional
         The fit at tau² = 0, when already computed.
 
@@ -224,40 +333,23 @@ def estimate_tau2(d: Any, method: str, *, tol: float = 1e-10, max_iter: int = 10
     >>> d = design_from_arrays([0.0, 1.0, 2.0], [0.5, 0.5, 0.5], None, intercept=True)
     >>> round(estimate_tau2(d, "DL").tau2, 6)   # Q = 4, df = 2, c = 6 - 2 = 4 -> 0.5
     0.5
+    >>> round(estimate_tau2(d, "dersimonian-laird").tau2, 6)
+    0.5
     """
-    k, p = d.k, d.p
+    rule = resolve(ESTIMATORS.parse(method).entry)
     if g0 is None:
         g0 = gls(sums_at(d, 0.0, use_numba), 0.0)
-    # DerSimonian-Laird in its meta-regression form (the starting value of REML and ML)
-    dl = max(0.0, (g0.yPy - (k - p)) / g0.trP) if g0.trP > 0 else 0.0
-    if method == "DL":
-        return TauFit(dl, True, 0)
-    if method in ("REML", "ML"):
-        return _fisher(d, method, dl, tol, max_iter, use_numba)
-    if method == "PM":
-        t, ok, it = solve_q(d, float(k - p), tol=tol, max_iter=max_iter, use_numba=use_numba,
-                            g0=g0)
-        msgs = [] if ok else [f"Paule-Mandel did not converge in {max_iter} iterations."]
-        return TauFit(t, ok, it, msgs)
-    if method in ("HE", "SJ"):
-        XtX, Xty, yy, sv, XtVX = _ols_pass(d)
-        XtXinv = np.linalg.inv(XtX)
-        rss = max(0.0, yy - Xty @ XtXinv @ Xty)
-        if method == "HE":
-            t = (rss - (sv - np.trace(XtXinv @ XtVX))) / (k - p)
-            return TauFit(max(0.0, float(t)), True, 0)
-        t0 = rss / k
-        if t0 <= 0.0:
-            return TauFit(0.0, True, 0, ["All residuals are zero; Sidik-Jonkman gives tau² = 0."])
-        q0 = gls(sums_at(d, t0, use_numba), t0).yPy
-        return TauFit(float(t0 * q0 / (k - p)), True, 1)
-    raise ModelError(f"Unknown tau² method {method!r}; use one of {', '.join(METHODS)}.")
+    return rule(d, g0=g0, tol=tol, max_iter=max_iter, use_numba=use_numba)
 
 
 def checked_sums(d: Any, un: bool = True) -> Sums:
     """Sums at tau² = 0 with a check that the moderators are not collinear or constant."""
     s = sums_at(d, 0.0, un)
     A = s.A
+    if s.shift is not None:  # the check reads the moderators as given: A = S⁻¹ A_c S⁻ᵀ
+        Si = np.eye(A.shape[0])
+        Si[1:, 0] = s.shift
+        A = Si @ A @ Si.T
     dg = np.diag(A)
     names = d.names
     from envlink.metareg.design import INTERCEPT

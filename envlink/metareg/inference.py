@@ -7,7 +7,8 @@ freedom of Tipton (2015); Higgins & Thompson (2004) for permutation tests.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -15,7 +16,8 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from envlink.errors import ModelError
+from envlink.errors import MetaRegressionWarning, ModelError, user_stacklevel
+from envlink.metareg.permutation import PermutationResult, permutation_test_model
 
 __all__ = [
     "knapp_hartung_scale",
@@ -23,10 +25,11 @@ __all__ = [
     "coef_table",
     "coef_arrays",
     "RobustFit",
+    "cr2_adjustment",
     "cluster_robust",
     "PermutationResult",
-    "permutation_test",
     "run_permutations",
+    "leave_one_out_fits",
     "leave_one_out",
     "standardized_residuals",
     "cooks_distance",
@@ -93,9 +96,31 @@ def _sym_pow(M: np.ndarray, power: float) -> np.ndarray:
     if vals.min() <= 1e-12 * max(1.0, vals.max()):
         raise ModelError(
             "CR2 adjustment undefined: a cluster is fully determined by the moderators "
-            "(I - H_jj is singular). Use fewer moderators or larger clusters."
+            "(its block of the residual covariance is singular). Use fewer moderators or "
+            "larger clusters."
         )
     return (vecs * vals**power) @ vecs.T
+
+
+def cr2_adjustment(phi: np.ndarray, xj: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """The CR2 adjustment ``A_j = D_jᵀ B_j^{-1/2} D_j`` of Pustejovsky & Tipton (2018).
+
+    ``D_jᵀ D_j = Φ_j`` and ``B_j = D_j [(I − H) Φ (I − H)ᵀ]_jj D_jᵀ``. With inverse-variance
+    weights (``W = Φ⁻¹``) and ``Φ`` block diagonal by cluster, the block is
+    ``Φ_j − X_j M X_jᵀ``. ``A_j`` does not depend on which factor ``D_j`` is taken
+    (any ``Q D_j`` with ``Q`` orthogonal gives the same), so the symmetric root of
+    ``Φ_j`` is used.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> a = cr2_adjustment(np.eye(2), np.ones((2, 1)), np.array([[0.25]]))
+    >>> np.round(a, 4).tolist()   # (I − 11ᵀ/4)^(-1/2): √2 along 1, 1 across it
+    [[1.2071, 0.2071], [0.2071, 1.2071]]
+    """
+    root = _sym_pow(phi, 0.5)
+    b = root @ (phi - xj @ m @ xj.T) @ root
+    return root @ _sym_pow(b, -0.5) @ root
 
 
 def cluster_robust(X: np.ndarray, e: np.ndarray, phi_blocks: list[np.ndarray],
@@ -140,10 +165,7 @@ def cluster_robust(X: np.ndarray, e: np.ndarray, phi_blocks: list[np.ndarray],
     for r, W, Phi in zip(rows, Wj, phi_blocks, strict=True):
         Xj = X[r]
         if kind == "CR2":
-            ph_half = _sym_pow(Phi, 0.5)
-            ph_mhalf = _sym_pow(Phi, -0.5)
-            Bj = np.eye(len(r)) - ph_mhalf @ Xj @ M @ Xj.T @ ph_mhalf
-            Aj = ph_half @ _sym_pow(Bj, -0.5) @ ph_mhalf
+            Aj = cr2_adjustment(Phi, Xj, M)
         else:
             Aj = np.eye(len(r))
         Pj = Aj.T @ W @ Xj @ M
@@ -166,62 +188,15 @@ def cluster_robust(X: np.ndarray, e: np.ndarray, phi_blocks: list[np.ndarray],
     return RobustFit(V, df, J, kind)
 
 
-@dataclass
-class PermutationResult:
-    """Permutation p-values for the omnibus moderator test and each moderator coefficient."""
-
-    n_permutations: int
-    seed: int | None
-    Q_M: float
-    Q_M_p: float
-    coefficients: pd.DataFrame  # term, statistic, p
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe dictionary."""
-        return {
-            "n_permutations": self.n_permutations, "seed": self.seed, "Q_M": self.Q_M,
-            "Q_M_p": self.Q_M_p,
-            "coefficients": [
-                {"term": t, "statistic": float(s), "p": float(p)}
-                for t, s, p in self.coefficients[["term", "statistic", "p"]].itertuples(index=False)
-            ],
-        }
-
-
-def permutation_test(refit: Callable[[np.ndarray], tuple[float, np.ndarray]], k: int,
-                     observed: tuple[float, np.ndarray], terms: Sequence[str],
-                     n_permutations: int, seed: int | None,
-                     progress: bool = True) -> PermutationResult:
-    """Permutation distribution of Q_M and coefficient statistics (Higgins & Thompson 2004).
-
-    ``refit(perm)`` refits the model with the moderator rows reordered by ``perm``
-    and returns ``(Q_M, statistics)`` for the tested coefficients. The p-value counts
-    the observed arrangement among the permutations: ``(1 + #{|T*| >= |T|}) / (1 + n)``.
-    """
-    from tqdm.auto import tqdm
-
-    if n_permutations < 1:
-        raise ModelError(f"n_permutations must be at least 1; got {n_permutations}.")
-    rng = np.random.default_rng(seed)
-    q_obs, t_obs = observed
-    t_obs = np.abs(np.asarray(t_obs, dtype=np.float64))
-    ge_q = 0
-    ge_t = np.zeros_like(t_obs)
-    eps = 1e-12
-    for _ in tqdm(range(n_permutations), desc="permutations", disable=not progress,
-                  leave=False):
-        q, t = refit(rng.permutation(k))
-        ge_q += q >= q_obs * (1 - eps)
-        ge_t += np.abs(t) >= t_obs * (1 - eps)
-    pq = (1 + ge_q) / (1 + n_permutations)
-    pt = (1 + ge_t) / (1 + n_permutations)
-    table = pd.DataFrame({"term": list(terms), "statistic": np.asarray(observed[1]), "p": pt})
-    return PermutationResult(n_permutations, seed, float(q_obs), float(pq), table)
-
-
 # ------------------------------------------------------------------ model-based diagnostics
-def _clone(model: Any) -> Any:
-    return type(model)(**model.get_params())
+# These read the model's public fitted state (design_, coef_, vcov_model_, ...) and
+# refit clones through the public fit(Design).
+def _refit(model: Any, design: Any) -> Any:
+    """A clone of ``model`` (same parameters) fitted to ``design``, its warnings kept quiet."""
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", MetaRegressionWarning)
+        return type(model)(**model.get_params()).fit(design)
 
 
 def _subset(d: Any, rows: np.ndarray, *, permute_x: np.ndarray | None = None) -> Any:
@@ -236,13 +211,13 @@ def _subset(d: Any, rows: np.ndarray, *, permute_x: np.ndarray | None = None) ->
 
 
 def _row_index(model: Any) -> pd.Index:
-    d = model._design
+    d = model.design_
     return pd.Index(d.labels if d.labels is not None else np.arange(d.k))
 
 
 def _full_rows(model: Any, frame: pd.DataFrame) -> pd.DataFrame:
     """Put every input row back (dropped rows as missing, flagged in ``dropped``)."""
-    d = model._design
+    d = model.design_
     if not d.n_dropped or d.keep is None:
         return frame.assign(dropped=False)
     full = pd.DataFrame(np.nan, index=np.arange(d.keep.shape[0]), columns=frame.columns)
@@ -255,46 +230,52 @@ def standardized_residuals(model: Any) -> pd.DataFrame:
     """Residuals ``e_i = y_i - x_iᵀ b`` over ``sqrt(Var e_i)``, ``Var e = diag(Φ - X (XᵀWX)⁻¹ Xᵀ)``.
 
     ``Φ`` is the fitted marginal covariance (``v_i + tau²``, or the multilevel
-    blocks); the model-based covariance of ``b`` is used whatever the test.
+    blocks); the model-based covariance of ``b`` (``vcov_model_``) is used whatever
+    the test. A row fitted exactly (leverage 1) has no standardised residual: it is
+    missing, with a :class:`~envlink.errors.MetaRegressionWarning`.
     """
-    d = model._design
+
+    d = model.design_
     y, v, Xf = d.dense()
     e = y - Xf @ model.coef_
-    h = np.einsum("ij,jk,ik->i", Xf, model._vcov_model, Xf)
+    h = np.einsum("ij,jk,ik->i", Xf, model.vcov_model_, Xf)
     var = v + model.tau2_ - h
     with np.errstate(invalid="ignore", divide="ignore"):
         z = np.where(var > 0, e / np.sqrt(np.where(var > 0, var, 1.0)), np.nan)
     if np.isnan(z).any():
-        model.warnings_.append("Some standardised residuals are undefined (a row fitted exactly, "
-                               "leverage 1); they are missing in the table.")
+        warnings.warn("Some standardised residuals are undefined (a row fitted exactly, "
+                      "leverage 1); they are missing in the table.", MetaRegressionWarning,
+                      stacklevel=user_stacklevel())
     out = pd.DataFrame({"residual": e, "se": np.sqrt(np.maximum(var, 0.0)), "z": z},
                        index=_row_index(model))
     return _full_rows(model, out)
 
 
-def _loo_fits(model: Any) -> list[Any]:
-    from tqdm.auto import tqdm
+def leave_one_out_fits(model: Any) -> list[Any]:
+    """The model refitted without each used row in turn (a ModelError where a refit fails)."""
+    from envlink.core.progress import progress_bar
 
-    if "loo" in model._cache:
-        return model._cache["loo"]
-    d = model._design
+    d = model.design_
     k = d.k
     if k - 1 <= d.p:
         raise ModelError(f"Leave-one-out needs k - 1 > p; k = {k}, p = {d.p}.")
-    fits = []
-    for i in tqdm(range(k), desc="leave-one-out", leave=False, disable=k < 200):
+    fits: list[Any] = []
+    for i in progress_bar(k, "leave-one-out", "fit", show=None if k >= 200 else False, iterable=range(k)):
         rows = np.delete(np.arange(k), i)
         try:
-            fits.append(_clone(model)._fit_design(_subset(d, rows), emit=False))
+            fits.append(_refit(model, _subset(d, rows)))
         except ModelError as exc:
             fits.append(exc)
-    model._cache["loo"] = fits
     return fits
 
 
-def leave_one_out(model: Any) -> pd.DataFrame:
-    """One row per left-out effect: each coefficient and its se, tau², Q_E, I²."""
-    fits = _loo_fits(model)
+def leave_one_out(model: Any, fits: list[Any]) -> pd.DataFrame:
+    """One row per left-out effect: each coefficient and its se, tau², Q_E, I².
+
+    ``fits`` are :func:`leave_one_out_fits`; a failed refit leaves its row missing,
+    with a :class:`~envlink.errors.MetaRegressionWarning`.
+    """
+
     rows: list[dict[str, float]] = []
     bad = 0
     for f in fits:
@@ -308,14 +289,13 @@ def leave_one_out(model: Any) -> pd.DataFrame:
             r[f"se_{name}"] = f.se_[j]
         rows.append(r)
     if bad:
-        model.warnings_.append(f"{bad} leave-one-out fit(s) failed (e.g. a category left empty); "
-                               "their rows are missing.")
+        warnings.warn(f"{bad} leave-one-out fit(s) failed (e.g. a category left empty); "
+                      "their rows are missing.", MetaRegressionWarning, stacklevel=user_stacklevel())
     return _full_rows(model, pd.DataFrame(rows, index=_row_index(model)))
 
 
-def cooks_distance(model: Any) -> pd.Series:
+def cooks_distance(model: Any, fits: list[Any]) -> pd.Series:
     """Cook's distances ``(b - b₍₋ᵢ₎)ᵀ Var(b)⁻¹ (b - b₍₋ᵢ₎)`` with ``Var(b)`` of the full fit."""
-    fits = _loo_fits(model)
     Vinv = np.linalg.inv(model.vcov_)
     vals = np.array([np.nan if isinstance(f, Exception) else
                      float((model.coef_ - f.coef_) @ Vinv @ (model.coef_ - f.coef_))
@@ -324,22 +304,7 @@ def cooks_distance(model: Any) -> pd.Series:
     return out["cooks_distance"]
 
 
-def run_permutations(model: Any, n_permutations: int, seed: int | None,
-                     progress: bool) -> PermutationResult:
-    """Permute the moderator rows against (effect, variance) and refit each time."""
-    idx = model._mod_idx
-    if not idx:
-        raise ModelError("A permutation test needs at least one moderator besides the intercept.")
-    d = model._design
-    rows = np.arange(d.k)
-    terms = [model.terms_[j] for j in idx]
-
-    def refit(perm: np.ndarray) -> tuple[float, np.ndarray]:
-        try:
-            f = _clone(model)._fit_design(_subset(d, rows, permute_x=perm), emit=False)
-        except ModelError:  # a permutation that makes the design singular counts as extreme
-            return float("inf"), np.full(len(idx), np.inf)
-        return float(f.Q_M_), f._coef_arrays["statistic"][idx]
-
-    observed = (float(model.Q_M_), model._coef_arrays["statistic"][idx])
-    return permutation_test(refit, d.k, observed, terms, n_permutations, seed, progress)
+def run_permutations(model: Any, n_permutations: int, seed: int | None, progress: bool | None,
+                     scheme: str | None = None) -> PermutationResult:
+    """Permutation p of each term and of Q_M (see :mod:`envlink.metareg.permutation`)."""
+    return permutation_test_model(model, n_permutations, seed, scheme=scheme, progress=progress)

@@ -16,6 +16,7 @@ import numpy as np
 from scipy import optimize
 
 from envlink.errors import ModelError
+from envlink.metareg.vocabulary import ESTIMATORS, multilevel_names
 
 __all__ = ["MultilevelFit", "fit_multilevel", "study_blocks"]
 
@@ -35,7 +36,7 @@ class MultilevelFit:
 
 
 def _parts(theta: np.ndarray, y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarray,
-           S: int, method: str, grad: bool):
+           S: int, restricted: bool, grad: bool):
     s1, s2 = float(theta[0]), float(theta[1])
     d = 1.0 / (v + s2)
     s = np.bincount(codes, d, minlength=S)
@@ -55,10 +56,10 @@ def _parts(theta: np.ndarray, y: np.ndarray, v: np.ndarray, X: np.ndarray, codes
     yPy = max(yVy - float(b @ beta), 0.0)
     logdetV = float(np.log(v + s2).sum() + np.log(den).sum())
     logdetA = 2.0 * float(np.log(np.diag(L)).sum())
-    if method == "ML":
-        ll = -0.5 * (len(y) * np.log(2 * np.pi) + logdetV + yPy)
-    else:
+    if restricted:
         ll = -0.5 * ((len(y) - X.shape[1]) * np.log(2 * np.pi) + logdetV + logdetA + yPy)
+    else:
+        ll = -0.5 * (len(y) * np.log(2 * np.pi) + logdetV + yPy)
     if not grad:
         return ll, None, beta, Ainv, yPy
     e = y - X @ beta
@@ -68,7 +69,7 @@ def _parts(theta: np.ndarray, y: np.ndarray, v: np.ndarray, X: np.ndarray, codes
     q1 = float(np.sum((de / den) ** 2))
     trVinv = float(d.sum() - c @ np.bincount(codes, d * d, minlength=S))
     tr1 = float(np.sum(s / den))
-    if method == "ML":
+    if not restricted:
         t1, t2 = tr1, trVinv
     else:
         Z = X * d[:, None] - (T * c[:, None])[codes] * d[:, None]
@@ -89,7 +90,9 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
     y, v : (k,) arrays
     X : (k, p) array, the full design with the intercept column
     codes : (k,) int array, study codes 0..S-1
-    method : {"REML", "ML"}
+    method : str
+        An estimator of :data:`~envlink.metareg.vocabulary.ESTIMATORS` usable with the
+        multilevel model (``"REML"`` or ``"ML"``, any spelling).
     start : float
         Starting total heterogeneity (split equally between the components).
 
@@ -103,13 +106,16 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
     >>> f.converged, bool(f.sigma2[0] > f.sigma2[1])
     (True, True)
     """
-    if method not in ("REML", "ML"):
-        raise ModelError(f"Multilevel models are fitted by REML or ML; got method {method!r}.")
+    entry = ESTIMATORS.parse(method).entry
+    if not entry.info.get("multilevel"):
+        raise ModelError(f"Multilevel models are fitted by {multilevel_names()}; got method "
+                         f"{method!r}.")
+    restricted = entry.info["likelihood"] == "restricted"
     S = int(codes.max()) + 1
     scale = max(float(np.var(y)), 1e-8)
 
     def fun(z: np.ndarray):
-        ll, g, *_ = _parts(z * scale, y, v, X, codes, S, method, True)
+        ll, g, *_ = _parts(z * scale, y, v, X, codes, S, restricted, True)
         return -ll, -g * scale
 
     x0 = np.full(2, max(start, 1e-4 * scale) / 2.0 / scale)
@@ -120,7 +126,7 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
     # polish: a few projected Newton steps with a finite-difference Hessian of the gradient
     n_extra = 0
     for _ in range(20):
-        ll, g, *_ = _parts(theta, y, v, X, codes, S, method, True)
+        ll, g, *_ = _parts(theta, y, v, X, codes, S, restricted, True)
         free = ~((theta <= 0.0) & (g <= 0.0))
         if not free.any() or np.max(np.abs(g[free]) * np.maximum(theta[free], scale)) < tol * abs(ll) * 1e-2:
             break
@@ -129,7 +135,7 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
             h = 1e-6 * max(theta[j], 1e-3 * scale)
             tp = theta.copy()
             tp[j] += h
-            H[:, j] = (_parts(tp, y, v, X, codes, S, method, True)[1] - g) / h
+            H[:, j] = (_parts(tp, y, v, X, codes, S, restricted, True)[1] - g) / h
         H = (H + H.T) / 2.0
         idx = np.flatnonzero(free)
         try:
@@ -138,14 +144,14 @@ def fit_multilevel(y: np.ndarray, v: np.ndarray, X: np.ndarray, codes: np.ndarra
             break
         new = theta.copy()
         new[idx] = np.maximum(theta[idx] + step, 0.0)
-        if _parts(new, y, v, X, codes, S, method, False)[0] < ll - 1e-12 * abs(ll):
+        if _parts(new, y, v, X, codes, S, restricted, False)[0] < ll - 1e-12 * abs(ll):
             break
         n_extra += 1
         if np.all(np.abs(new - theta) <= tol * np.maximum(1.0, theta)):
             theta = new
             break
         theta = new
-    ll, g, beta, Ainv, yPy = _parts(theta, y, v, X, codes, S, method, True)
+    ll, g, beta, Ainv, yPy = _parts(theta, y, v, X, codes, S, restricted, True)
     free = ~((theta <= 0.0) & (g <= 0.0))
     # first-order optimality: the likelihood gains < 1e-6 per relative change of a component
     crit = float(np.max(np.abs(g[free]) * np.maximum(theta[free], scale), initial=0.0))

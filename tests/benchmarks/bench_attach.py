@@ -24,7 +24,12 @@ the coast) with windows of 1-36 whole months. Timed, per layout:
 (d) a streaming limit: the file in one-year time slabs (band rows only), needed cells
     gathered with NumPy, in as many processes as cores, then window means.
 
-Medians of the repeats with min-max are printed as JSON and a Markdown table.
+With ``--process``, only (e): whole processes from the command line, CSV to CSV, on
+the compressed file: ``envlink attach --spatial nearest-valid:50km --stat mean`` with a
+cold cell-series store against (d) as a whole process that also reads and writes the
+CSV, alternating, with the peak memory (VmHWM) of every process of each summed.
+
+Medians of the repeats with min-max are printed as JSON.
 """
 
 from __future__ import annotations
@@ -55,8 +60,9 @@ def land_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     return f > 0.45
 
 
-def write_grids(folder: Path, ny: int, nx: int, nt: int) -> dict[str, Path]:
-    """Write the synthetic grid in both layouts; returns layout -> path."""
+def write_grids(folder: Path, ny: int, nx: int, nt: int, layouts: tuple[str, ...] = ("compressed", "contiguous"),
+                start: str = "1990-01-01") -> dict[str, Path]:
+    """Write the synthetic grid in the given layouts (monthly from ``start``); returns layout -> path."""
     import netCDF4
 
     lat = -90.0 + (np.arange(ny) + 0.5) * (180.0 / ny)
@@ -64,6 +70,7 @@ def write_grids(folder: Path, ny: int, nx: int, nt: int) -> dict[str, Path]:
     land = land_mask(lat, lon)
     base = (28.0 - 20.0 * np.sin(np.radians(lat)) ** 2)[:, None] + 0.5 * np.cos(np.radians(lon))[None, :]
     paths = {"compressed": folder / "sst_zlib1.nc", "contiguous": folder / "sst_contiguous.nc"}
+    paths = {k: v for k, v in paths.items() if k in layouts}
     for layout, path in paths.items():
         rng = np.random.default_rng(7)  # the same values in both layouts
         with netCDF4.Dataset(path, "w") as ds:
@@ -71,8 +78,8 @@ def write_grids(folder: Path, ny: int, nx: int, nt: int) -> dict[str, Path]:
             ds.createDimension("lat", ny)
             ds.createDimension("lon", nx)
             t = ds.createVariable("time", "f8", ("time",))
-            t.units, t.calendar = "days since 1990-01-01", "standard"
-            months = pd.date_range("1990-01-01", periods=nt + 1, freq="MS")
+            t.units, t.calendar = f"days since {start}", "standard"
+            months = pd.date_range(start, periods=nt + 1, freq="MS")
             t[:] = (months[:-1] - months[0]).days.to_numpy()
             ds.createVariable("lat", "f8", ("lat",))[:] = lat
             ds["lat"].units = "degrees_north"
@@ -92,7 +99,7 @@ def write_grids(folder: Path, ny: int, nx: int, nt: int) -> dict[str, Path]:
     return paths
 
 
-def make_rows(n: int, ny: int, nx: int, nt: int, seed: int = 1) -> pd.DataFrame:
+def make_rows(n: int, ny: int, nx: int, nt: int, seed: int = 1, origin: str = "1990-01-01") -> pd.DataFrame:
     """Ocean-ish sites (|lat| <= 35) with 1-36 month windows; ~5 % on coastal land cells."""
     rng = np.random.default_rng(seed)
     lat_c = -90.0 + (np.arange(ny) + 0.5) * (180.0 / ny)
@@ -109,7 +116,7 @@ def make_rows(n: int, ny: int, nx: int, nt: int, seed: int = 1) -> pd.DataFrame:
         lon.extend(b[ok].tolist())
     length = rng.integers(1, min(36, nt) + 1, n)
     start = rng.integers(0, nt - length + 1)
-    months = pd.date_range("1990-01-01", periods=nt + 1, freq="MS")
+    months = pd.date_range(origin, periods=nt + 1, freq="MS")
     return pd.DataFrame({
         "site_lat": np.asarray(lat[:n]), "site_lon": np.asarray(lon[:n]),
         "period_start": months[start].strftime("%Y-%m-%d"),
@@ -238,6 +245,82 @@ def time_d(path: Path, table: pd.DataFrame, workers: int) -> float:
     return time.perf_counter() - t0
 
 
+# -- (e) whole processes: envlink attach CSV -> CSV against a streaming reference ----
+def write_located_csv(table: pd.DataFrame, path: Path) -> None:
+    """The rows as 'envlink sites' writes them (text cells), without the month indices."""
+    out = pd.DataFrame({
+        "id": np.arange(len(table)), "site_lat": table.site_lat.round(6), "site_lon": table.site_lon.round(6),
+        "site_precision_km": 0.111, "period_start": table.period_start, "period_end": table.period_end,
+        "period_precision": "day", "locate_status": "ok", "locate_flags": "",
+    })
+    out.to_csv(path, index=False)
+
+
+def run_reference(grid: str, rows_csv: str, out_csv: str, workers: int) -> None:
+    """The streaming limit (d) as a whole process: read the CSV, nearest cells by index
+    arithmetic, the file in yearly slabs (band rows only) in ``workers`` processes, window
+    means from cumulative sums, the CSV written with the value column added."""
+    import netCDF4
+
+    table = pd.read_csv(rows_csv, keep_default_na=False, na_values=[""])
+    with netCDF4.Dataset(grid) as ds:
+        iy, ix = _cells(ds, table)
+        nt = ds.dimensions["time"].size
+        t0 = pd.Timestamp(str(netCDF4.num2date(ds["time"][0], ds["time"].units)))
+    start = pd.to_datetime(table.period_start)
+    end = pd.to_datetime(table.period_end) + pd.Timedelta(days=1)
+    m0 = ((start.dt.year - t0.year) * 12 + start.dt.month - t0.month).to_numpy()
+    m1 = ((end.dt.year - t0.year) * 12 + end.dt.month - t0.month).to_numpy()
+    flat = np.unique(iy * 100_000 + ix)
+    uy, ux = flat // 100_000, flat % 100_000
+    j0, j1 = int(uy.min()), int(uy.max()) + 1
+    series = np.empty((nt, flat.size), dtype=np.float32)
+    jobs = [(str(grid), s, min(s + 12, nt), j0, j1, uy, ux) for s in range(0, nt, 12)]
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        for s, vals in pool.map(_slab, jobs):
+            series[s : s + vals.shape[0]] = vals
+    series = np.where(series == np.float32(-999.0), np.float32(np.nan), series)
+    col = np.searchsorted(flat, iy * 100_000 + ix)
+    table["sst"] = _window_means(series[:, col].astype(np.float64), m0, m1)
+    table.to_csv(out_csv, index=False)
+
+
+def process_benchmark(folder: Path, grid: Path, rows_csv: Path, reps: int, spatial: str, workers: int
+                      ) -> dict[str, object]:
+    """(e): ``envlink attach`` (cold store) and the reference process, alternating, ``reps`` times each."""
+    from _process import launcher, run_measured, summary
+
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
+    runs: dict[str, list[dict[str, object]]] = {"envlink": [], "reference": []}
+    for r in range(reps):
+        cache = tempfile.mkdtemp(dir=folder, prefix="cache-")  # a cold store every run
+        envlink_cmd = launcher(["-m", "envlink", "attach", str(rows_csv), "--grid", str(grid), "--name", "sst",
+                                "--spatial", spatial, "--stat", "mean", "-o", str(folder / "out_envlink.csv"),
+                                "--force", "--no-progress"])
+        ref_cmd = launcher([__file__, "--run-reference", str(grid), str(rows_csv), str(folder / "out_ref.csv"),
+                            str(workers)])
+        order = [("envlink", envlink_cmd), ("reference", ref_cmd)]
+        for name, cmd in order if r % 2 == 0 else order[::-1]:
+            runs[name].append(run_measured(cmd, env={**env, "ENVLINK_CACHE": cache}))
+    env_s = summary([float(x["seconds"]) for x in runs["envlink"]])  # type: ignore[arg-type]
+    ref_s = summary([float(x["seconds"]) for x in runs["reference"]])  # type: ignore[arg-type]
+    got = pd.read_csv(folder / "out_envlink.csv", usecols=["sst"])["sst"].to_numpy()
+    ref = pd.read_csv(folder / "out_ref.csv", usecols=["sst"])["sst"].to_numpy()
+    both = np.isfinite(got) & np.isfinite(ref)
+    return {
+        "envlink_s": env_s, "reference_s": ref_s, "ratio": env_s["median"] / ref_s["median"],
+        "ratios": [float(a["seconds"]) / float(b["seconds"])  # type: ignore[arg-type]
+                   for a, b in zip(runs["envlink"], runs["reference"], strict=True)],
+        "envlink_peak_mib": max(float(x["peak_mib"]) for x in runs["envlink"]),  # type: ignore[arg-type]
+        "envlink_processes": runs["envlink"][0]["peak_by_process_mib"],
+        "reference_peak_mib": max(float(x["peak_mib"]) for x in runs["reference"]),  # type: ignore[arg-type]
+        "reference_processes": runs["reference"][0]["peak_by_process_mib"],
+        "rows_with_value": [int(np.isfinite(got).sum()), int(np.isfinite(ref).sum())],
+        "median_abs_difference": float(np.median(np.abs(got[both] - ref[both]))) if both.any() else None,
+        "envlink_stderr": str(runs["envlink"][-1]["stderr"])[-600:],
+    }
+
+
 # -- driver --------------------------------------------------------------------------
 def _summ(xs: list[float]) -> dict[str, float]:
     return {"median": statistics.median(xs), "min": min(xs), "max": max(xs), "n": len(xs)}
@@ -252,10 +335,18 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--repeats", type=int, default=None, help="repeats of (a), (b), (d) (default 3 full, 2 quick)")
     p.add_argument("--sel-rows", type=int, default=None, help="rows for (c) (default 1000 full, 50 quick)")
     p.add_argument("--workdir", help="folder for the grids (default: a temporary folder, removed)")
+    p.add_argument("--process", action="store_true",
+                   help="(e) only: whole 'envlink attach' processes, CSV to CSV, cold store, against the "
+                        "streaming reference as a whole process (the compressed file)")
+    p.add_argument("--spatial", default="nearest-valid:50km", help="(e): the spatial rule (default nearest-valid:50km)")
     p.add_argument("--run-envlink", nargs=2, metavar=("GRID", "ROWS"), help=argparse.SUPPRESS)
+    p.add_argument("--run-reference", nargs=4, metavar=("GRID", "CSV", "OUT", "WORKERS"), help=argparse.SUPPRESS)
     args = p.parse_args(argv)
     if args.run_envlink:
         print(json.dumps(run_envlink(*args.run_envlink)))
+        return 0
+    if args.run_reference:
+        run_reference(*args.run_reference[:3], int(args.run_reference[3]))
         return 0
     if args.size:
         (ny, nx, nt, n), reps, sel = args.size, 2, 200
@@ -266,6 +357,8 @@ def main(argv: list[str] | None = None) -> int:
     reps = args.repeats or reps
     sel = args.sel_rows or sel
     workers = os.cpu_count() or 1
+    if args.process:
+        return _process_main(args, ny, nx, nt, n, reps, workers)
     with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
         folder = Path(tmp)
         t0 = time.perf_counter()
@@ -298,5 +391,21 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
+def _process_main(args: argparse.Namespace, ny: int, nx: int, nt: int, n: int, reps: int, workers: int) -> int:
+    with tempfile.TemporaryDirectory(dir=args.workdir) as tmp:
+        folder = Path(tmp)
+        t0 = time.perf_counter()
+        grid = write_grids(folder, ny, nx, nt, layouts=("compressed",))["compressed"]
+        gen = time.perf_counter() - t0
+        rows_csv = folder / "rows.csv"
+        write_located_csv(make_rows(n, ny, nx, nt), rows_csv)
+        report = {"grid": [nt, ny, nx], "rows": n, "repeats": reps, "spatial": args.spatial,
+                  "reference_workers": workers, "generate_s": gen, "file_mb": grid.stat().st_size / 1e6,
+                  **process_benchmark(folder, grid, rows_csv, reps, args.spatial, workers)}
+    print(json.dumps(report, indent=2))
+    return 0
+
+
 if __name__ == "__main__":
+    sys.path.insert(0, str(Path(__file__).resolve().parent))  # _process.py beside this file
     sys.exit(main())

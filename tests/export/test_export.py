@@ -106,7 +106,8 @@ def test_datapackage_validates_with_frictionless(tmp_path: Path) -> None:
     assert fields["sst_anom_distance_km"]["unit"] == "km"
     assert fields["period_start"]["type"] == "date"
     assert fields["fit_included"]["type"] == "boolean"
-    assert fields["examined"]["type"] == "string"  # input columns stay as given
+    # an input column of numbers written as text is typed as numbers; the CSV keeps the text
+    assert fields["examined"]["type"] == "integer" and fields["notes"]["type"] == "string"
     env = desc["envlink"]
     assert env["project_sha256"] == "ab" * 32
     assert env["covariates"]["sst_anom"]["spatial"] == "nearest-valid:40km"
@@ -140,12 +141,17 @@ def test_geopackage_reads_back_equal_to_csv_with_points_and_polygons(tmp_path: P
     from_csv = _read_csv_typed(paths["csv"], desc)
     g = gpd.read_file(paths["gpkg"], layer="vell")
     assert g.crs.to_epsg() == 4326
-    _assert_frames_equal(from_csv, pd.DataFrame(g.drop(columns="geometry")))
+    attrs = pd.DataFrame(g.drop(columns="geometry"))
+    for col in ("period_start", "period_end"):  # GeoPackage DATE fields read back as dates
+        attrs[col] = [None if pd.isna(v) else pd.Timestamp(v).strftime("%Y-%m-%d") for v in attrs[col]]
+    _assert_frames_equal(from_csv, attrs)
     assert g.geometry.iloc[2] is None  # the row without a location keeps its place
-    assert g.geometry.iloc[3].equals(shapely.from_wkt(POLY))
-    assert g.geometry.iloc[0].geom_type == "Point"
+    assert set(g.geometry.dropna().geom_type) == {"Point"}  # one geometry type per layer
     np.testing.assert_allclose([g.geometry.iloc[0].x, g.geometry.iloc[0].y],
                                [t.site_lon[0], t.site_lat[0]], rtol=0, atol=1e-12)  # fmt: skip
+    regions = gpd.read_file(paths["gpkg"], layer="vell_regions")
+    assert regions["reef"].tolist() == ["Vell Mor Lagoon"]  # the region row, its polygon
+    assert regions.geometry.iloc[0].equals(shapely.from_wkt(POLY))
 
 
 def test_fit_written_as_json_contract_and_text(tmp_path: Path) -> None:
@@ -153,11 +159,12 @@ def test_fit_written_as_json_contract_and_text(tmp_path: Path) -> None:
     fit = MetaRegression(moderators="sst_anom").fit(t, effect="effect", variance="variance")
     paths = export_table(t, tmp_path, formats=["csv"], fit=fit)
     d = json.loads(paths["fit_json"].read_text())
-    for key in ("method", "k", "p", "tau2", "I2", "Q_E", "Q_M", "coefficients", "test"):
-        assert key in d  # the JSON contract of DESIGN.md section 4
-    assert d["k"] == len(t)
-    np.testing.assert_allclose(d["coefficients"][1]["estimate"],
-                               fit.to_dict()["coefficients"][1]["estimate"], rtol=1e-12)
+    for key in ("format_version", "model", "heterogeneity", "moderator_test", "coefficients",
+                "variance_components", "diagnostics", "warnings"):
+        assert key in d  # the sections of docs/methods.md, "Result fields"
+    assert d["model"]["effects_used"] == len(t)
+    np.testing.assert_allclose(d["coefficients"]["table"][1]["estimate"],
+                               fit.to_dict()["coefficients"]["table"][1]["estimate"], rtol=1e-12)
     assert paths["fit_text"].read_text().strip() == str(fit.summary()).strip()
 
 
@@ -170,7 +177,7 @@ def test_existing_output_needs_force_and_bad_format_is_named(tmp_path: Path) -> 
     assert first["csv"].read_bytes() == before
     export_table(t.assign(effect=1.0), tmp_path, formats=["csv"], force=True)
     assert first["csv"].read_bytes() != before
-    with pytest.raises(InputError, match=r"'formats' parameter.*csv, parquet, gpkg.*'gpkgg'.*"
+    with pytest.raises(InputError, match=r"'formats' parameter.*csv, csv-bom, parquet, gpkg, xlsx.*'gpkgg'.*"
                                          r"Did you mean 'gpkg'"):
         export_table(t, tmp_path, formats=["gpkgg"])
     # a file path names the folder and the stem

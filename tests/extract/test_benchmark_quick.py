@@ -57,10 +57,29 @@ def test_quick_benchmark_values_and_speed(bench, tmp_path, monkeypatch):
     monkeypatch.setenv("ENVLINK_READ_WORKERS", "2")
     grid = open_grid(paths["contiguous"], "sst", chunks={"time": -1, "lat": 18, "lon": 36})
     calls = []
-    real = reader._read_rect
+    real = reader.read_rect
     monkeypatch.setattr(reader, "_workers", lambda *a: calls.append(a) or 2)
     par = attach(rows, grid, name="sst", spatial="nearest-valid:25km", time_weights="equal", progress=False)
     assert_allclose(par["sst"], out["sst"], rtol=0, atol=0, equal_nan=True)
     assert par["sst_flags"].tolist() == out["sst_flags"].tolist()
     assert calls and calls[0][2] > 1  # several tiles, read by a pool of 2 processes
-    assert real is reader._read_rect
+    assert real is reader.read_rect
+
+
+@pytest.mark.quick_benchmark
+def test_quick_process_benchmark_csv_to_csv(bench, tmp_path):
+    # (e) of bench_attach.py at a tiny size: whole 'envlink attach' against the streaming
+    # reference process, one run each; the reference's equal-weight monthly means are
+    # the duration-weighted means' neighbours (common practice: months differ by <= 3 days)
+    import sys
+
+    sys.path.insert(0, str(_BENCH.parent))
+    ny, nx, nt, n = 36, 72, 24, 400
+    grid = bench.write_grids(tmp_path, ny, nx, nt, layouts=("compressed",))["compressed"]
+    rows = tmp_path / "rows.csv"
+    bench.write_located_csv(bench.make_rows(n, ny, nx, nt), rows)
+    rep = bench.process_benchmark(tmp_path, grid, rows, 1, "nearest-valid:50km", 2)
+    got, ref = rep["rows_with_value"]
+    assert got >= ref * 0.9 and rep["median_abs_difference"] < 0.05
+    assert rep["envlink_peak_mib"] > 0 and rep["reference_peak_mib"] > 0
+    assert "cells    read from the grid" in rep["envlink_stderr"]

@@ -51,7 +51,7 @@ def test_attach_located_table(files, capsys):
     assert res["sst_flags"].tolist() == ["", "outside_grid", "site_rejected"]
     err = capsys.readouterr().err
     assert "values         1" in err and "missing        2" in err and "outside_grid" in err
-    assert list((files / "cache").glob("*.npz"))
+    assert list((files / "cache" / "cells").glob("*/*.cells"))  # the cells' series are in the store
 
 
 def test_attach_locates_first(files):
@@ -61,7 +61,10 @@ def test_attach_locates_first(files):
                "-o", str(out), "--no-cache"])
     assert rc == 0
     res = pd.read_parquet(out)
-    assert res["id"].tolist() == ["1", "2"]  # input cells kept exactly as written
+    # Parquet is typed: a column of whole numbers written as text is integers; a column with
+    # a cell that is no number keeps every cell exactly as written (envlink.tables.kinds)
+    assert res["id"].tolist() == [1, 2] and pd.api.types.is_integer_dtype(res["id"])
+    assert res["la"].tolist() == ["1.2", "bad"] and res["when"].tolist() == ["2000-03", "2001"]
     assert_allclose(res["sst"][0], 2.0 + 6.0, rtol=1e-12)  # February 2000 at cell (1.5, 10.5)
     assert res["sst_flags"][1] == "site_rejected"
     assert not (files / "cache").exists()
@@ -81,7 +84,7 @@ def test_attach_dhw_with_mmm_value(files):
 @pytest.mark.parametrize(
     "extra, message",
     [
-        (["--stat", "avg"], "The 'stat' parameter of attach must be"),
+        (["--stat", "avg"], "The 'stat' parameter of attach (option --stat) must be"),
         (["--spatial", "nearest-valid:abc"], "'nearest-valid:Dkm' with D a positive distance in km"),
         (["--mmm", "nowhere.nc", "--stat", "dhw-max"], "--mmm 'nowhere.nc' is neither a number"),
     ],
@@ -206,7 +209,7 @@ def test_attach_checks_output_before_any_work(files, capsys, target, message):
 
 
 def test_attach_unwritable_cache_warns_and_writes_output(files, monkeypatch, capsys):
-    from envlink.extract.cache import CacheWarning
+    from envlink.errors import CacheWarning
 
     (files / "blocker").write_text("a regular file\n")
     monkeypatch.setenv("ENVLINK_CACHE", str(files / "blocker" / "cache"))

@@ -1,4 +1,4 @@
-"""The attach output contract, parameter errors, caching and lazy (file / dask) grids."""
+"""The attach output contract, parameter errors, lazy (file / dask) grids and the store's code key (the store: test_store.py)."""
 
 from __future__ import annotations
 
@@ -47,8 +47,9 @@ def test_every_row_in_order_input_unchanged_new_columns(grid):
     # a row without a value always says why
     assert all(f for v, f in zip(out["sst"], out["sst_flags"], strict=True) if np.isnan(v))
     prov = out.attrs["envlink"]["sst"]
-    for key in ("grid_identity", "variable", "stat", "window", "spatial", "baseline", "time_weights", "software"):
+    for key in ("grid_identity", "variable", "stat", "window", "spatial", "time_weights", "software"):
         assert key in prov
+    assert "baseline" not in prov  # recorded only for statistics that read one
     assert prov["stat"] == "mean" and prov["spatial"] == "nearest" and prov["window"] == "period"
     # a second covariate keeps the first one's provenance
     out2 = attach(out, grid, name="sst_lag", window="lag:1M")
@@ -63,10 +64,10 @@ def test_every_row_in_order_input_unchanged_new_columns(grid):
         ({"stat": "above"}, r"'above:T' with T a threshold"),
         ({"window": "lag:3W"}, r"The 'window' parameter of attach must be .*; got 'lag:3W'"),
         ({"window": "lagg:3M"}, r"Did you mean 'lag'\?"),
-        ({"spatial": "buffer:-5km"}, r"'buffer:Dkm' with D a positive distance in km; got 'buffer:-5km'"),
+        ({"spatial": "buffer:-5km"}, r"'buffer:Rkm' with R a positive distance in km; got 'buffer:-5km'"),
         ({"spatial": "nearest-valid"}, r"'nearest-valid:Dkm'"),
         ({"baseline": "1990"}, r"The 'baseline' parameter of attach must be two years 'YYYY-YYYY'"),
-        ({"time_weights": "days"}, r"The 'time_weights' parameter of attach must be 'duration' or 'equal'; got 'days'"),
+        ({"time_weights": "days"}, r"The 'time_weights' parameter of attach must be one of 'duration', 'equal'; got 'days'"),
         ({"min_coverage": 2}, r"The 'min_coverage' parameter of attach must be a fraction from 0 to 1; got 2"),
         ({"mmm": 28.0}, r"The 'mmm' parameter of attach must be given only with stat='dhw-max'"),
         ({"stat": "dhw-max", "mmm": float("nan")}, r"The 'mmm' parameter of attach must be a finite number in degC .*; got nan"),
@@ -89,24 +90,6 @@ def test_missing_columns_and_name_clash(grid):
     t["v_flags"] = ""
     with pytest.raises(InputError, match=r"already has column 'v_flags'"):
         attach(t, grid, name="v")
-
-
-def test_cache_round_trip(grid, tmp_path):
-    t = _rows()
-    first = attach(t, grid, name="v", cache_dir=tmp_path)
-    assert first.attrs["envlink"]["v"]["cache"] == "stored"
-    assert len(list(tmp_path.glob("*.npz"))) == 1
-    again = attach(t, grid, name="w", cache_dir=tmp_path)
-    assert again.attrs["envlink"]["w"]["cache"] == "hit"
-    assert_allclose(again["w"], first["v"], rtol=0, atol=0, equal_nan=True)
-    assert again["w_flags"].tolist() == first["v_flags"].tolist()
-    # another request, or other rows, or other values in the grid: another entry
-    attach(t, grid, name="v", stat="max", cache_dir=tmp_path)
-    t2 = t.copy()
-    t2.loc[0, "period_end"] = "2000-05-31"
-    attach(t2, grid, name="v", cache_dir=tmp_path)
-    attach(t, grid + 1.0, name="v", cache_dir=tmp_path)
-    assert len(list(tmp_path.glob("*.npz"))) == 4
 
 
 def test_lazy_netcdf_and_dask_grids_match_memory(grid, tmp_path):
@@ -158,55 +141,6 @@ def test_dask_grid_reads_only_needed_chunks(grid):
         assert 4 <= ys.start and ys.stop <= 6 and 4 <= xs.start and xs.stop <= 6
 
 
-def test_cache_that_cannot_be_written_warns_and_the_run_goes_on(grid, tmp_path):
-    from envlink.extract.cache import CacheWarning
-
-    blocker = tmp_path / "not_a_folder"
-    blocker.write_text("a regular file\n")  # no folder can be made under it, even as root
-    t = _rows()
-    with pytest.warns(CacheWarning, match=r"cache at '.*not_a_folder.*' could not be written .*not cached"):
-        out = attach(t, grid, name="v", cache_dir=blocker / "cache")
-    assert_allclose(out["v"], attach(t, grid, name="v")["v"], rtol=0, atol=0, equal_nan=True)
-
-
-def test_cache_write_refused_warns(grid, tmp_path, monkeypatch):
-    import errno
-
-    import envlink.extract.cache as cache
-
-    def refuse(path):
-        raise PermissionError(errno.EACCES, "Permission denied", str(path) + ".x.part")
-
-    monkeypatch.setattr(cache, "atomic_path", refuse)
-    with pytest.warns(cache.CacheWarning, match=r"could not be written \(Permission denied\)") as rec:
-        assert cache.save(tmp_path, "0" * 64, {k: np.zeros(2) for k in cache._FIELDS}) is None
-    assert ".part" not in str(rec[0].message)  # the temporary name is no use to the user
-
-
-@pytest.mark.parametrize("damage", ["garbage", "truncated", "short"])
-def test_damaged_cache_entry_is_a_miss_with_a_warning(grid, tmp_path, damage):
-    from envlink.extract.cache import CacheWarning
-
-    t = _rows()
-    first = attach(t, grid, name="v", cache_dir=tmp_path)
-    (entry,) = tmp_path.glob("*.npz")
-    raw = entry.read_bytes()
-    if damage == "garbage":
-        entry.write_bytes(b"not an npz file at all")
-    elif damage == "truncated":
-        entry.write_bytes(raw[: len(raw) // 2])  # zip header kept, directory lost
-    else:
-        np.savez(entry, **{k: np.zeros(2) for k in ("value", "cell_lat", "cell_lon", "distance_km",
-                                                       "coverage", "flags")})
-    with pytest.warns(CacheWarning, match=r"cache entry .*\.npz' could not be read .*computed again"):
-        again = attach(t, grid, name="w", cache_dir=tmp_path)
-    assert again.attrs["envlink"]["w"]["cache"] == "stored"
-    assert_allclose(again["w"], first["v"], rtol=0, atol=0, equal_nan=True)
-    assert again["w_flags"].tolist() == first["v_flags"].tolist()
-    third = attach(t, grid, name="u", cache_dir=tmp_path)  # the entry was written again
-    assert third.attrs["envlink"]["u"]["cache"] == "hit"
-
-
 def test_impossible_coordinates_are_site_rejected_without_numpy_warnings(grid):
     # |lat| > 90 or an infinite longitude are no coordinates (ISO 6709 ranges);
     # an empty table gives an empty result with the six columns.
@@ -222,24 +156,33 @@ def test_impossible_coordinates_are_site_rejected_without_numpy_warnings(grid):
     assert len(empty) == 0 and "v_coverage" in empty.columns
 
 
-def test_cache_key_changes_with_the_extraction_code(grid, tmp_path, monkeypatch):
-    # results cached by other extraction code are not served: the key holds a hash
-    # of the code's source (SHA-256 over envlink/extract/*.py and envlink/geo.py)
+def test_store_key_changes_with_the_decoding_code(grid, tmp_path, monkeypatch):
+    # series stored by other decoding code are not served: the store's key holds a hash
+    # of the code's source (SHA-256 over the import graphs of envlink.grids.open, the
+    # cell reader and the store; tests/extract/test_codehash.py checks which files and
+    # that an edit changes it)
     import hashlib
     from pathlib import Path
 
-    from envlink.extract import cache
+    from envlink.extract import store
+    from envlink.extract.codehash import decoding_files
 
-    src = Path(cache.__file__).resolve().parent
-    files = sorted(src.glob("*.py")) + [src.parent / "geo.py"]
+    root = Path(store.__file__).resolve().parents[2]
     h = hashlib.sha256()
-    for f in files:  # the same recipe, recomputed here from the files on disk
-        h.update(f"{f.parent.name}/{f.name}\x00".encode() + f.read_bytes() + b"\x00")
-    assert cache.code_hash() == h.hexdigest()
-    t = _rows()
-    key = cache.request_key(grid, t, {"stat": "mean"})
-    assert attach(t, grid, name="v", cache_dir=tmp_path).attrs["envlink"]["v"]["cache"] == "stored"
-    monkeypatch.setattr(cache, "_CODE_HASH", "0" * 64)
-    assert cache.request_key(grid, t, {"stat": "mean"}) != key
-    assert attach(t, grid, name="v", cache_dir=tmp_path).attrs["envlink"]["v"]["cache"] == "stored"
-    assert len(list(tmp_path.glob("*.npz"))) == 2
+    for f in decoding_files():  # the same recipe, recomputed here from the files on disk
+        h.update(f"{f.relative_to(root).as_posix()}\x00".encode() + f.read_bytes() + b"\x00")
+    assert store.decoding_code_hash() == h.hexdigest()
+    path = tmp_path / "g.nc"
+    ds = grid.to_dataset(name="sst")
+    ds["sst"].attrs = {"units": "degC"}  # the fixture's boolean attribute has no netCDF type
+    ds.to_netcdf(path)
+    lazy = envlink.open_grid(path)
+    t, cache = _rows(), str(tmp_path / "cache")
+    key = store.grid_key(lazy)
+    assert attach(t, lazy, name="v", cache_dir=cache).attrs["envlink"]["v"]["store"] == "stored"
+    assert attach(t, lazy, name="v", cache_dir=cache).attrs["envlink"]["v"]["cells"] == "store"
+    monkeypatch.setattr(store, "_CODE_HASH", "0" * 64)
+    assert store.grid_key(lazy) != key
+    again = attach(t, lazy, name="v", cache_dir=cache)
+    assert again.attrs["envlink"]["v"]["cells"] == "read" and again.attrs["envlink"]["v"]["store"] == "stored"
+    assert len([p for p in store.store_root(cache).iterdir() if p.is_dir()]) == 2

@@ -58,7 +58,7 @@ def test_dhw_mmm_from_climatology_grid(dhw_grid):
 
 
 def test_dhw_mmm_climatology_not_reaching_the_site(dhw_grid):
-    # never the edge value of a climatology that does not cover the site (DESIGN.md §6.3)
+    # never the edge value of a climatology that does not cover the site (docs/extract.md, flag no_mmm)
     clim = xr.DataArray([[hs.MMM, hs.MMM]], dims=("lat", "lon"), coords={"lat": [20.0], "lon": [0.0, 1.0]})
     out = attach(table([0.5], [0.5], "2010-01-01", "2010-04-30"), dhw_grid, name="dhw", stat="dhw-max", mmm=clim)
     assert np.isnan(out["dhw"][0]) and out["dhw_flags"][0].split(";")[0] == "no_mmm"

@@ -8,7 +8,7 @@ import pandas as pd
 from numpy.testing import assert_array_equal
 
 from envlink.extract import reader
-from envlink.extract.compute import _ranges
+from envlink.extract.stats import _ranges
 from envlink.grids.open import open_grid
 
 
@@ -66,3 +66,46 @@ def test_ranges_matches_a_python_loop():
     expect = np.concatenate([np.arange(s, s + c) for s, c in zip(starts, counts, strict=True)])
     assert_array_equal(_ranges(starts, counts), expect)
     assert _ranges(np.array([4]), np.array([0])).size == 0
+
+
+def test_reads_shared_between_this_process_and_kept_readers(tmp_path, monkeypatch):
+    from envlink.core import processes
+
+    p = tmp_path / "c.nc"
+    values = _write(p, "chunked")
+    g = open_grid(p, "sst")
+    monkeypatch.setattr(reader, "_PARALLEL_BYTES", 0)
+    monkeypatch.setattr(reader, "_TILE_BYTES", 2_000)  # one storage chunk per tile: many tiles
+    monkeypatch.setenv("ENVLINK_READ_WORKERS", "2")
+    flat = np.sort(np.random.default_rng(3).choice(30 * 40, size=200, replace=False))
+    iy, ix = np.divmod(flat, 40)
+    with netCDF4.Dataset(p) as ds:  # reference: the raw netCDF4 read, fill values masked
+        raw = ds["sst"][:].filled(np.nan)
+    try:
+        assert_array_equal(reader.read_cells(g, flat), raw[:, iy, ix].T)
+        kept = processes._KEPT["pool"]
+        assert_array_equal(reader.read_cells(g, flat[::-1]), raw[:, iy[::-1], ix[::-1]].T)
+        assert processes._KEPT["pool"] is kept  # the second read reuses the readers
+    finally:
+        processes.close_reader_pool()
+    assert "pool" not in processes._KEPT
+    assert_array_equal(raw, np.where(np.isnan(values), np.nan, values))
+
+
+def test_merged_candidates_are_one_copy(tmp_path):
+    from envlink.extract.series import CellSeries
+
+    p = tmp_path / "u.nc"
+    values = _write(p, "contiguous")
+    cs = CellSeries(open_grid(p, "sst"))
+    base = np.array([3, 50, 700])
+    more = np.array([5, 51, 900, 1100])
+    cs.get(base)
+    cs.get(np.array([51, 900]))  # some candidates already in memory, in a part of their own
+    X, rows = cs.view_with(base, more)
+    both = np.concatenate([base, more])
+    iy, ix = np.divmod(both, 40)
+    # reference: direct NumPy indexing of the array written
+    assert_array_equal(X[rows], values[:, iy, ix].T)
+    held = [part for part in cs._parts if part.X is not None]
+    assert len(held) == 1 and held[0].X is X  # the merged copy replaced the parts it holds

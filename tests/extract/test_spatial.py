@@ -227,7 +227,7 @@ def test_polygon_on_projected_equal_area_grid():
 
 def test_regional_grid_across_antimeridian_flags_sites_in_its_longitude_gap():
     # A grid from 170°E to 170°W, stored in [-180, 180) as -179.5..-170.5 then
-    # 170.5..179.5: sites at 0° or 165°W lie beyond its edges (DESIGN.md §6.3, §6.4).
+    # 170.5..179.5: sites at 0° or 165°W lie beyond its edges (docs/extract.md, `nearest`).
     lon = np.concatenate([np.arange(-179.5, -170.0, 1.0), np.arange(170.5, 180.0, 1.0)])
     v = np.arange(2.0 * 3 * lon.size).reshape(2, 3, lon.size)
     g = make_grid(v, lat=[-0.5, 0.5, 1.5], lon=lon, start="2000-01-01", freq="MS")

@@ -106,7 +106,7 @@ def test_partial_steps_by_duration():
     assert_allclose(total["v"], [10.0 * 10 / 31 + 20.0 * 10 / 29], rtol=1e-12)
     eq = attach(t, g, name="v", time_weights="equal")
     assert_allclose(eq["v"], [15.0], rtol=1e-12)
-    # a one-day window counts the whole day of the step it falls in (DESIGN.md §4)
+    # a one-day window counts the whole day of the step it falls in (docs/extract.md, "Windows")
     one = attach(table([0.5], [0.5], "2000-02-29", "2000-02-29"), g, name="v")
     assert_allclose(one["v"], [20.0], rtol=0, atol=0)
     assert_allclose(one["v_coverage"], [1.0], rtol=0, atol=0)

@@ -18,7 +18,7 @@ from pyproj import Geod, Transformer
 from rapidfuzz import fuzz
 from shapely.geometry import Point, Polygon
 
-from envlink import read_gazetteer
+from envlink import InputError, read_gazetteer
 from envlink.locate.gazetteer import Gazetteer, Match, SiteNameError, normalise_name
 
 REEFS = pd.DataFrame(
@@ -151,7 +151,7 @@ def test_geopackage_polygon_kept_as_wkt_with_point_inside_and_equivalent_radius(
 def test_polygon_radius_agrees_with_spherical_cell_area() -> None:
     sq = _square(158.0, -8.0, 0.5)
     m = read_gazetteer(gpd.GeoDataFrame({"name": ["Cell"]}, geometry=[sq], crs="EPSG:4326")).match("Cell")
-    # sphere cell area R² Δλ (sin φ2 − sin φ1), R = 6371.0088 km (DESIGN §5); the WGS84
+    # sphere cell area R² Δλ (sin φ2 − sin φ1), R = 6371.0088 km (envlink.geo.cell_area_km2); the WGS84
     # ellipsoid differs from the sphere by well under 1 % here
     r = 6371.0088
     area = r**2 * math.radians(0.5) * abs(math.sin(math.radians(-7.5)) - math.sin(math.radians(-8.0)))
@@ -213,3 +213,62 @@ def test_invisible_and_no_break_spaces_match_exactly(reported: str) -> None:
     gz = read_gazetteer(pd.DataFrame({"name": ["Kestle Reef"], "lat": ["-8.664"], "lon": ["-117.8755"]}))
     m = gz.match(reported)
     assert (m.name, m.method, m.flags) == ("Kestle Reef", "exact", ())
+
+
+# ------------------------------------------------ a CSV gazetteer reads as a GeoPackage does
+def _demo(name: str):
+    from envlink.demo_grids import data_path
+
+    return data_path(name)
+
+
+def test_csv_wkt_polygons_come_back_as_regions_like_the_geopackage() -> None:
+    from_csv, from_gpkg = read_gazetteer(_demo("vell_reefs.csv")), read_gazetteer(_demo("vell_reefs.gpkg"))
+    for region in ("Vell Mor Lagoon", "Tarrin Barrier", "Osk Shoals"):
+        a, b = from_csv.match(region), from_gpkg.match(region)
+        assert a.wkt is not None and shapely.from_wkt(a.wkt).equals(shapely.from_wkt(b.wkt))
+        assert_allclose([a.lat, a.lon, a.precision_km], [b.lat, b.lon, b.precision_km], rtol=0, atol=1e-12)
+        # a region's precision is the radius of its equal-area circle (pyproj Geod reference),
+        # kilometres, not the 11 m that four written decimals of its point would imply
+        area, _ = Geod(ellps="WGS84").geometry_area_perimeter(shapely.from_wkt(a.wkt))
+        assert_allclose(a.precision_km, math.sqrt(abs(area) / math.pi) / 1000, rtol=1e-12)
+        assert a.precision_km > 5.0
+
+
+def test_aliases_find_the_place_in_csv_and_geopackage_alike() -> None:
+    for path in (_demo("vell_reefs.csv"), _demo("vell_reefs.gpkg")):
+        g = read_gazetteer(path)
+        m = g.match("Amberlet")
+        assert (m.name, m.method, m.flags) == ("Amberlet Reef", "exact", ())
+        assert "by its alias 'Amberlet'" in m.notes[0]
+        assert_allclose([m.lat, m.lon], [-8.223, -117.0309], rtol=0, atol=1e-9)
+        assert g.match("kestle").name == "Kestle Reef"  # an alias, ignoring case
+
+
+def test_aliases_cell_holds_several_names_and_wkt_points_without_coordinates() -> None:
+    df = pd.DataFrame({
+        "name": ["Halden Rock", "Mossy Flat"],
+        "aliases": ["Halden; the Rock | Halden Pinnacle", ""],
+        "wkt": ["POINT (160.2 -12.5)", "POLYGON ((160 -9, 160.1 -9, 160.1 -8.9, 160 -8.9, 160 -9))"],
+    })  # fmt: skip
+    g = read_gazetteer(df)
+    for alias in ("Halden", "the Rock", "Halden Pinnacle"):
+        assert g.match(alias).name == "Halden Rock"
+    rock = g.match("Halden Rock")
+    assert_allclose([rock.lat, rock.lon], [-12.5, 160.2], rtol=0, atol=1e-12)
+    assert rock.wkt is None and math.isnan(rock.precision_km)  # as a GeoPackage point
+    assert shapely.from_wkt(g.match("Mossy Flat").wkt).geom_type == "Polygon"
+    assert g.names == ["Halden Rock", "Mossy Flat"]
+
+
+def test_an_alias_shared_by_two_places_is_ambiguous() -> None:
+    df = pd.DataFrame({"name": ["North Bank", "South Bank"], "aliases": ["the Bank", "the Bank"],
+                       "lat": ["-8", "-9"], "lon": ["160", "160"]})  # fmt: skip
+    m = read_gazetteer(df).match("the Bank")
+    assert m.name is None and m.flags == ("ambiguous_site_name",)
+
+
+def test_bad_wkt_in_a_csv_gazetteer_names_the_row_and_column() -> None:
+    df = pd.DataFrame({"name": ["Fenn Reef"], "wkt": ["POLYGON ((1 2, 3"]})
+    with pytest.raises(InputError, match=r"row 1 \(site 'Fenn Reef'\): column 'wkt' holds .* not WKT"):
+        read_gazetteer(df)

@@ -24,7 +24,7 @@ from envlink.locate.periods import (
 D = dt.date
 WET = {"wet": [11, 12, 1, 2, 3, 4], "dry": [5, 6, 7, 8, 9, 10]}
 
-# (text, options, start, end, precision, flags). Windows are inclusive days (DESIGN.md §4).
+# (text, options, start, end, precision, flags). Windows are inclusive days (docs/locate-periods.md).
 # Month lengths and leap years in the expected values follow the Gregorian calendar,
 # checked against Python's calendar module in test_expected_windows_follow_the_calendar.
 CASES = [
@@ -60,7 +60,7 @@ CASES = [
     ("Jul-Sep 2012", {}, D(2012, 7, 1), D(2012, 9, 30), "month", ()),
     # month range with full names and "to" (issue 2 example)
     ("July to September 2012", {}, D(2012, 7, 1), D(2012, 9, 30), "month", ()),
-    # month range across the year end (issue 2 example): still precision month (DESIGN.md §4)
+    # month range across the year end (issue 2 example): still precision month (docs/locate-periods.md)
     ("Oct 2010-Jan 2011", {}, D(2010, 10, 1), D(2011, 1, 31), "month", ()),
     # month range with spaced hyphen (issue 2 example); Feb 2010 has 28 days
     ("Dec 2009 - Mar 2010", {}, D(2009, 12, 1), D(2010, 3, 31), "month", ()),

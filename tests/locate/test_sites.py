@@ -2,7 +2,7 @@
 
 Sites are invented reefs of the fictional Vell Archipelago. Expected coordinates are
 arithmetic on the written values (e.g. 8°30' = 8.5°); expected dates follow ISO 8601
-(calendar dates, clause 5.2.1) and DESIGN.md §4 (inclusive windows).
+(calendar dates, clause 5.2.1) and docs/locate-periods.md (inclusive windows).
 """
 
 from __future__ import annotations

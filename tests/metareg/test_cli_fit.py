@@ -1,4 +1,4 @@
-"""``envlink fit`` end to end: the JSON contract of DESIGN.md §4, exit codes, messages."""
+"""``envlink fit`` end to end: the JSON contract of docs/methods.md ("Result fields"), exit codes, messages."""
 
 from __future__ import annotations
 
@@ -13,9 +13,20 @@ from reference.bcg import table
 from envlink.cli import main
 from envlink.metareg import MetaRegression
 
-CONTRACT = ["method", "k", "p", "tau2", "tau2_ci", "I2", "H2", "R2", "Q_E", "Q_E_df", "Q_E_p",
-            "Q_M", "Q_M_df", "Q_M_p", "test", "df", "coefficients", "variance_components",
-            "converged", "iterations", "warnings"]
+#: the sections of the result and their keys (docs/methods.md, "Result fields")
+CONTRACT = {
+    "format_version": None,
+    "model": ["tau2_method", "tau2_method_words", "effects_used", "rows_left_out",
+              "coefficient_count", "moderators", "nested", "cluster", "cluster_count",
+              "confidence_level", "converged", "iterations"],
+    "heterogeneity": ["tau2", "tau2_interval", "I2_percent", "H2", "R2_percent", "residual_test",
+                      "pooled_prediction_interval"],
+    "moderator_test": ["Q_M", "distribution", "df", "df_denominator", "p"],
+    "coefficients": ["test", "test_words", "df", "table"],
+    "variance_components": None,
+    "diagnostics": None,
+    "warnings": None,
+}
 
 
 @pytest.fixture
@@ -35,15 +46,79 @@ def test_fit_json_contract(bcg_csv, tmp_path, capsys):
     text = capsys.readouterr().out
     assert "ablat" in text and "Q_E" in text
     got = json.loads(out.read_text())
-    assert list(got) == CONTRACT
-    assert got["test"] == "t" and got["df"] == 11
-    assert [c["term"] for c in got["coefficients"]] == ["intercept", "ablat"]
-    assert set(got["coefficients"][0]) == {"term", "estimate", "se", "statistic", "p", "ci_low",
-                                           "ci_high", "df"}
+    assert list(got) == list(CONTRACT) and got["format_version"] == "2.0"
+    for section, keys in CONTRACT.items():
+        if keys is not None:
+            assert list(got[section]) == keys, section
+    assert got["coefficients"]["test"] == "t" and got["coefficients"]["df"] == 11
+    assert got["moderator_test"]["distribution"] == "F"
+    assert got["moderator_test"]["df"] == 1 and got["moderator_test"]["df_denominator"] == 11
+    assert list(got["heterogeneity"]["residual_test"]) == ["Q_E", "df", "p"]
+    assert list(got["heterogeneity"]["tau2_interval"]) == ["low", "high", "method"]
+    rows = got["coefficients"]["table"]
+    assert [c["term"] for c in rows] == ["intercept", "ablat"]
+    assert list(rows[0]) == ["term", "estimate", "se", "statistic", "p", "ci_low", "ci_high", "df"]
     ref = MetaRegression(moderators="ablat", test="knapp-hartung").fit(table(), effect="yi",
                                                                       variance="vi")
-    np.testing.assert_allclose(got["tau2"], ref.tau2_, rtol=1e-12)
+    np.testing.assert_allclose(got["heterogeneity"]["tau2"], ref.tau2_, rtol=1e-12)
+    assert got["model"]["effects_used"] == 13 and got["model"]["coefficient_count"] == 2
     assert got == json.loads(json.dumps(ref.to_dict()))
+
+
+def test_fit_text_layout_is_envlinks(bcg_csv, capsys):
+    # sections of envlink's own design; p below 1e-16 reads "p < 1e-16"; whole df as integers
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--method", "DL",
+                 "--test", "knapp-hartung"]) == 0
+    text = capsys.readouterr().out
+    for title in ("The model and its data", "Heterogeneity", "Moderator test", "Coefficients"):
+        assert f"\n{title}\n" in text
+    assert "p < 1e-16" in text and "p = <" not in text  # Q_E = 152.2 on 12 df (Colditz data)
+    assert "closed form" in text and "0 iteration" not in text  # DL is not iterative
+    assert "Knapp-Hartung t tests, 12 df" in text and "12.0000" not in text
+    assert re.search(r"intercept .* 12$", text, re.MULTILINE)  # the df column: 12, not 12.0
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi",
+                 "--moderators", "ablat"]) == 0
+    text = capsys.readouterr().out
+    assert "chi² = " in text and "with 1 df" in text and "on (1) df" not in text
+
+
+def test_fit_prediction_interval_option(bcg_csv, tmp_path, capsys):
+    from scipy import stats
+
+    out = tmp_path / "fit.json"
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--prediction", "Riley",
+                 "--json", str(out)]) == 0
+    pi = json.loads(out.read_text())["heterogeneity"]["pooled_prediction_interval"]
+    ref = MetaRegression().fit(table(), effect="yi", variance="vi")
+    # Riley, Higgins & Deeks (2011): mu ± t_(k-2) sqrt(se² + tau²)
+    half = stats.t.ppf(0.975, 11) * np.sqrt(ref.se_[0] ** 2 + ref.tau2_)
+    assert pi["rule"] == "riley" and pi["df"] == 11
+    np.testing.assert_allclose([pi["low"], pi["high"]], [ref.coef_[0] - half, ref.coef_[0] + half],
+                               rtol=1e-10)
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi",
+                 "--prediction", "rilye"]) == 2
+    assert "Did you mean 'riley'" in capsys.readouterr().err
+
+
+def test_fit_notes_name_options_not_parameters(bcg_csv, capsys):
+    # a message that names a Python parameter (nested=) reads as the option on the command
+    # line; one row per level of --nested is refused (a flat likelihood), naming the option
+    df = pd.read_csv(bcg_csv).assign(each=[f"r{i}" for i in range(13)])
+    df.to_csv(bcg_csv, index=False)
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--nested", "each"]) == 2
+    cap = capsys.readouterr()
+    assert "--nested each" in cap.err and "nested=" not in cap.err + cap.out
+
+
+def test_fit_help_is_true(capsys):
+    assert main(["fit", "--help"]) == 0
+    text = capsys.readouterr().out
+    assert not re.search(r"\b(yi|vi)\b", text)  # envlink's own column names in the examples
+    assert "--effect effect --variance variance" in text
+    assert "A column of text\nis fitted as a category" in text
+    for option in ("--report", "--figures", "--label", "--forest-order", "--prediction", "--bubble"):
+        assert option in text
+    assert "dersimonian-laird" in text and "restricted-maximum-likelihood" in text
 
 
 def test_fit_nested_cluster_parquet_and_permutations(bcg_csv, tmp_path, capsys):
@@ -58,8 +133,48 @@ def test_fit_nested_cluster_parquet_and_permutations(bcg_csv, tmp_path, capsys):
     assert rc == 0
     got = json.loads(out.read_text())
     assert set(got["variance_components"]) == {"between_study", "within_study"}
-    assert got["permutation"]["seed"] == 3
-    assert all("df" in c for c in got["coefficients"])
+    assert got["moderator_test"]["permutation"]["seed"] == 3
+    assert all("df" in c for c in got["coefficients"]["table"])
+
+
+def test_fit_permutations_and_checks_go_into_the_sections(bcg_csv, tmp_path, capsys):
+    # one layout (docs/methods.md, "Result fields"): the permutation tests under
+    # moderator_test, each term's p beside its coefficient, the checks under diagnostics
+    df = pd.read_csv(bcg_csv)
+    df["alloc"] = df["alloc"].str.strip()
+    df.to_csv(bcg_csv, index=False)
+    out = tmp_path / "x.json"
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--moderators",
+                 "ablat + C(alloc)", "--permutations", "200", "--seed", "1", "--diagnostics",
+                 "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    got = json.loads(out.read_text())
+    assert list(got) == list(CONTRACT) and "permutation" not in got
+    perm = got["moderator_test"]["permutation"]
+    assert list(perm) == ["n_permutations", "seed", "scheme", "engine", "test", "terms", "omnibus",
+                          "corrects_for", "notes"]
+    assert perm["n_permutations"] == 200 and perm["seed"] == 1 and perm["scheme"] == "rows"
+    assert [t["term"] for t in perm["terms"]] == ["ablat", "C(alloc)"]
+    assert perm["terms"][0]["label"] == "permutation p for ablat (this model)"
+    assert perm["omnibus"]["statistic"] == "Q_M"
+    assert perm["omnibus"]["label"].startswith("omnibus permutation p of Q_M")
+    for t in perm["terms"]:  # p = (1 + count) / (1 + n): a multiple of 1/201 (common practice)
+        assert 1 / 201 <= t["p"] <= 1
+        np.testing.assert_allclose(t["p"] * 201, round(t["p"] * 201), atol=1e-9)
+    by_term = {r["term"]: r["permutation_p"] for r in got["coefficients"]["table"]}
+    assert by_term == {"intercept": None, "ablat": perm["terms"][0]["p"],
+                       "C(alloc)[T.random]": None, "C(alloc)[T.systematic]": None}
+    small = got["diagnostics"]["small_study"]
+    assert small["model"].startswith("REML model, moderators: ablat + C(alloc)")
+    assert small["small_study_test"]["term"] == "sqrt(variance)"
+    # the text keeps its sections: the permutation p's under the moderator test, a column
+    # in the coefficient table, the small-study checks in a Diagnostics section
+    moderator_test = text.split("\nModerator test\n")[1].split("\nCoefficients\n")[0]
+    assert "permutation p for ablat (this model" in moderator_test
+    assert "omnibus permutation p of Q_M" in moderator_test
+    table_text = text.split("\nCoefficients\n")[1].split("\nDiagnostics\n")[0]
+    assert "perm. p" in table_text
+    assert "Egger-type test" in text.split("\nDiagnostics\n")[1]
 
 
 def test_fit_bad_input_exit_codes(bcg_csv, capsys):
@@ -109,9 +224,10 @@ def test_fit_reads_numbers_written_as_text(tmp_path, capsys):
     got = json.loads(out.read_text())
     ref_df = table().assign(ablat_txt=table()["ablat"] + 0.5)
     ref = MetaRegression(moderators="ablat_txt + C(alloc)").fit(ref_df, effect="yi", variance="vi")
-    assert [c["term"] for c in got["coefficients"]] == ref.terms_  # white space is not a level
+    rows = got["coefficients"]["table"]
+    assert [c["term"] for c in rows] == ref.terms_  # white space is not a level
     assert ref.terms_ == ["intercept", "ablat_txt", "C(alloc)[T.random]", "C(alloc)[T.systematic]"]
-    np.testing.assert_allclose([c["estimate"] for c in got["coefficients"]], ref.coef_, rtol=1e-9)
+    np.testing.assert_allclose([c["estimate"] for c in rows], ref.coef_, rtol=1e-9)
 
 
 def test_fit_text_in_a_number_column_names_row_and_value(tmp_path, capsys):
@@ -155,10 +271,12 @@ def test_fit_typed_tables_keep_their_types(tmp_path, capsys):
         assert main(["fit", str(path), "--effect", "yi", "--variance", "vi", "--moderators",
                      "ablat + year", "--json", str(out)]) == 0
         got = json.loads(out.read_text())
-        np.testing.assert_allclose([c["estimate"] for c in got["coefficients"]], ref.coef_, rtol=1e-9)
+        rows = got["coefficients"]["table"]
+        np.testing.assert_allclose([c["estimate"] for c in rows], ref.coef_, rtol=1e-9)
         assert main(["fit", str(path), "--effect", "yi", "--variance", "vi", "--moderators",
-                     "ablat_txt", "--json", str(out)]) == 0
-        assert [c["term"] for c in json.loads(out.read_text())["coefficients"]] == ["intercept", "ablat_txt"]
+                     "ablat_txt", "--json", str(out), "--force"]) == 0  # replacing needs --force
+        rows = json.loads(out.read_text())["coefficients"]["table"]
+        assert [c["term"] for c in rows] == ["intercept", "ablat_txt"]
     capsys.readouterr()
 
 
@@ -175,31 +293,62 @@ def test_fit_formula_errors_are_plain_text(bcg_csv, capsys):
 
 
 def test_fit_diagnostics_and_influence(bcg_csv, tmp_path, capsys):
-    # The wiring of the diagnostics into `envlink fit`: the numbers must equal the
-    # functions' own (each checked against its reference in test_diagnostics.py and
+    # The wiring of the model checks into `envlink fit`: the numbers must equal the
+    # functions' own (each checked against its reference in test_bias.py and
     # test_influence.py) on the rows the model used.
-    from envlink.metareg.diagnostics import egger_test, fail_safe_n, trim_and_fill
+    from envlink.metareg.bias import small_study_test
+    from envlink.metareg.diagnostics import fail_safe_n
 
     out, infl = tmp_path / "fit.json", tmp_path / "influence.csv"
     rc = main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--moderators", "ablat",
-               "--diagnostics", "--influence", str(infl), "--json", str(out)])
+               "--diagnostics", "--effect-kind", "log_risk_ratio", "--influence", str(infl),
+               "--label", "trial", "--json", str(out)])
     assert rc == 0
     text = capsys.readouterr().out
-    assert "Egger's test" in text and "Trim-and-fill" in text and "Fail-safe N" in text
-    got = json.loads(out.read_text())["diagnostics"]
+    assert "Egger-type test, sqrt(variance) added to this model" in text
+    assert "Fail-safe N (Rosenthal 1979; null tested: effect 0 (no difference))" in text
+    assert "Trim-and-fill not run: it has no form with moderators or nesting" in text
+    got = json.loads(out.read_text())["diagnostics"]["small_study"]
     t = table()
     y, v = t["yi"].to_numpy(), t["vi"].to_numpy()
-    assert got["k"] == 13
-    np.testing.assert_allclose(got["egger"]["intercept"], egger_test(y, v).intercept, rtol=1e-12)
-    assert got["trim_and_fill"]["k0"] == trim_and_fill(y, v).k0
-    assert got["fail_safe_n"] == fail_safe_n(y, v)
     ref = MetaRegression(moderators="ablat").fit(t, effect="yi", variance="vi")
+    assert got["model"] == "REML model, moderators: ablat, z tests"
+    np.testing.assert_allclose(got["small_study_test"]["estimate"],
+                               small_study_test(ref).estimate, rtol=1e-12)
+    assert got["fail_safe_n"] == fail_safe_n(y, v) and got["trim_and_fill"] is None
     rows = pd.read_csv(infl)
     assert len(rows) == 13 and rows["row"].tolist() == list(range(1, 14))
+    assert list(rows.columns[:3]) == ["row", "trial", "dropped"]  # each row carries its label
+    assert rows["trial"].tolist() == t["trial"].tolist()
     np.testing.assert_allclose(rows["cooks_distance"], ref.cooks_distance(), rtol=1e-10)
     np.testing.assert_allclose(rows["standardized_residual"], ref.standardized_residuals()["z"],
                                rtol=1e-10)
     np.testing.assert_allclose(rows["loo_ablat"], ref.leave_one_out()["ablat"], rtol=1e-10)
+
+
+def test_fit_checks_for_one_group_proportions_and_space(bcg_csv, tmp_path, capsys):
+    import pandas as pd
+
+    t = pd.read_csv(bcg_csv)
+    t["site_lat"] = t["ablat"].astype(float) * np.where(np.arange(len(t)) % 2, 1.0, -1.0)
+    t["site_lon"] = np.linspace(-60.0, 60.0, len(t))
+    path = tmp_path / "bcg_sites.csv"
+    t.to_csv(path, index=False)
+    out = tmp_path / "fit.json"
+    rc = main(["fit", str(path), "--effect", "yi", "--variance", "vi", "--diagnostics",
+               "--effect-kind", "Logit_Proportion", "--spatial", "knn:3", "--seed", "2",
+               "--json", str(out)])
+    assert rc == 0
+    text = capsys.readouterr().out
+    assert "Fail-safe N: not given (no null effect is meaningful" in text
+    assert "funnel is asymmetric by construction" in text
+    got = json.loads(out.read_text())["diagnostics"]
+    assert got["small_study"]["fail_safe_n"] is None
+    assert got["small_study"]["trim_and_fill"]["k0"] >= 0  # intercept-only: trim-and-fill runs
+    assert got["spatial"]["moran"]["weights"] == "knn:3" and got["spatial"]["moran"]["n"] == 13
+    assert main(["fit", str(bcg_csv), "--effect", "yi", "--variance", "vi", "--spatial",
+                 "knn:3"]) == 2
+    assert "--spatial needs the columns site_lat, site_lon" in capsys.readouterr().err
 
 
 def test_fit_influence_path_checked_first(bcg_csv, tmp_path, capsys):

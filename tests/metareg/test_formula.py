@@ -55,7 +55,7 @@ def test_summary_text_and_html():
     s = MetaRegression(moderators="ablat", cluster="alloc").fit(df, effect="yi",
                                                                 variance="vi").summary()
     text = str(s)
-    assert "ablat" in text and "CR2 cluster-robust (3 clusters)" in text
+    assert "ablat" in text and "CR2 cluster-robust" in text and "(3 clusters of alloc)" in text
     html = s._repr_html_()
     assert html.startswith("<div") and "<td>ablat</td>" in html
 

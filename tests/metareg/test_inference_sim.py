@@ -68,9 +68,9 @@ def test_permutation_p_matches_exact_enumeration():
     n = 2000
     res = m.permutation_test(n_permutations=n, seed=7, progress=False)
     se = np.sqrt(exact * (1 - exact) / n)
-    assert abs(res.coefficients["p"].iloc[0] - exact) <= 4 * se + 1 / n
+    assert abs(res.terms["p"].iloc[0] - exact) <= 4 * se + 1 / n
     # with one moderator the z test and Q_M = z² order permutations identically
-    assert_allclose(res.Q_M_p, res.coefficients["p"].iloc[0], rtol=1e-12)
+    assert_allclose(res.Q_M_p, res.terms["p"].iloc[0], rtol=1e-12)
 
 
 def test_permutation_reproducible_with_seed():
@@ -79,5 +79,5 @@ def test_permutation_reproducible_with_seed():
     a = m.permutation_test(n_permutations=200, seed=42, progress=False)
     b = m.permutation_test(n_permutations=200, seed=42, progress=False)
     assert a.to_dict() == b.to_dict()
-    assert list(a.coefficients["term"]) == ["ablat", "year"]
+    assert list(a.terms["term"]) == ["ablat", "year"]
     assert 0 < a.Q_M_p <= 1

@@ -53,7 +53,7 @@ def test_identical_effects_boundary(bcg):
 def test_non_convergence_is_reported(bcg):
     with pytest.warns(MetaRegressionWarning, match="did not converge in 1 iterations"):
         m = MetaRegression(moderators="ablat", max_iter=1).fit(bcg, effect="yi", variance="vi")
-    assert not m.converged_ and not m.to_dict()["converged"]
+    assert not m.converged_ and not m.to_dict()["model"]["converged"]
 
 
 def test_missing_rows_dropped_counted_and_kept_in_outputs(bcg):

@@ -80,7 +80,7 @@ def test_multilevel_matches_dense_scipy(method):
     assert_allclose(m.I2_, 100 * comps.sum() / tot, rtol=1e-8)
     d = m.to_dict()
     assert d["variance_components"]["between_study"] == pytest.approx(comps[0], rel=1e-12)
-    assert d["tau2_ci"] == [None, None]
+    assert d["heterogeneity"]["tau2_interval"] == {"low": None, "high": None, "method": "Q-profile"}
     assert any("Q-profile" in w for w in d["warnings"])
 
 

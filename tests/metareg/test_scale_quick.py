@@ -42,3 +42,22 @@ def test_quick_benchmark_k1e4():
     m32 = MetaRegression().fit(y=y.astype(np.float32), v=v.astype(np.float32),
                                X=X.astype(np.float32))
     assert abs(m32.tau2_ - m.tau2_) < 1e-3 * m.tau2_se_
+
+
+@pytest.mark.quick_benchmark
+@pytest.mark.requires_dask
+def test_quick_benchmark_zarr_float32_out_of_core():
+    from benchmarks.bench_metareg_zarr import BETA as TRUE_BETA
+    from benchmarks.bench_metareg_zarr import TAU2 as TRUE_TAU2
+    from benchmarks.bench_metareg_zarr import main
+
+    res = main(["--quick"])
+    ooc, mem = res["out_of_core"], res["in_memory"]
+    # chunks read from the store in every pass give the in-memory answer (float32 storage)
+    assert_allclose(ooc["tau2"], mem["tau2"], rtol=1e-10)
+    assert_allclose(ooc["coef"], mem["coef"], rtol=1e-10)
+    assert_allclose(ooc["tau2_ci"], mem["tau2_ci"], rtol=1e-10)
+    assert ooc["passes"] <= 8 and mem["passes"] <= 8
+    # recovery of the simulated truth (wide: 4 SEs, one seeded draw)
+    assert abs(mem["tau2"] - TRUE_TAU2) < 4 * mem["tau2_se"]
+    assert np.all(np.abs(np.array(mem["coef"]) - TRUE_BETA) < 4 * np.array(mem["se"]))

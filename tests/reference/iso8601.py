@@ -6,7 +6,7 @@ every example and clause number below is **from memory** of its text (the same e
 appear in ISO 8601:2004, whose clause numbers differ: 4.1.2 calendar dates, 4.1.3
 ordinal dates, 4.1.4 week dates, 4.4 time intervals). Each expected window is the
 inclusive range of calendar days the representation covers (envlink's convention,
-DESIGN.md §4), worked out by hand and cross-checked in the tests against Python's
+docs/locate-periods.md), worked out by hand and cross-checked in the tests against Python's
 ``datetime`` (``date.fromisoformat``, ``date.fromisocalendar``).
 
 Calendar facts (leap years, month lengths) are not typed in here: the tests take them

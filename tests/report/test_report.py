@@ -152,4 +152,99 @@ def test_forest_plot_subset_is_the_most_precise_effects() -> None:
     fig = plots.forest_plot([f"s{i}" for i in range(100)], y, v, max_rows=10)
     ax = fig.axes[0]
     assert [t.get_text() for t in ax.get_yticklabels()] == [f"s{i}" for i in range(90, 100)]
-    assert "the 10 most precise of 100 shown" in ax.get_title()
+    assert "the 10 most precise of 100 shown" in ax.get_title(loc="left")
+
+
+def _categorical_table(n: int = 30) -> pd.DataFrame:
+    # a text column placed before the numeric moderator in table order
+    t = _table(n)
+    method = np.array(["transect", "quadrat", "photo"])[np.arange(n) % 3]
+    return pd.concat([pd.DataFrame({"method": method}), t], axis=1)
+
+
+def test_categorical_moderator_keeps_every_figure() -> None:
+    t = _categorical_table()
+    fit = envlink.MetaRegression(moderators="method + sst_anom").fit(t)
+    page = render_report(table=t, fit=fit, covariates=["sst_anom"], label="study")
+    # map, flag bars, histogram, bubble, forest, funnel, residuals
+    assert page.count("data:image/png;base64,") == 7
+    assert "against sst_anom, the first numeric term of the model" in page
+    assert "categories at their most common level" in page
+
+
+def test_categories_only_model_has_no_bubble_but_the_other_figures() -> None:
+    t = _categorical_table()
+    fit = envlink.MetaRegression(moderators="C(method)").fit(t)
+    page = render_report(table=t, fit=fit, covariates=["sst_anom"])
+    assert page.count("data:image/png;base64,") == 6  # no bubble plot
+    assert "No bubble plot: the model has no numeric moderator" in page
+    page = render_report(table=t, fit=fit, moderator="method")
+    assert "No bubble plot: &#x27;method&#x27; is not a numeric column" in page
+
+
+def test_model_figures_name_their_level_and_order() -> None:
+    from envlink.report import model_figures
+
+    t = _table().assign(site=lambda d: [f"reef {i:02d}" for i in range(len(d))])
+    fit = envlink.MetaRegression(moderators="sst_anom", level=0.9).fit(t)
+    figs = {f.name: f for f in model_figures(t, fit, label="site", forest_order="label")}
+    assert list(figs) == ["bubble", "forest", "funnel", "residuals"]
+    for name in ("bubble", "forest", "funnel"):
+        assert "90%" in figs[name].caption and "95%" not in figs[name].caption, name
+    assert "labelled by site" in figs["forest"].caption
+    ax = figs["forest"].figure.axes[0]
+    names = [tick.get_text() for tick in ax.get_yticklabels()]
+    assert names[:-1] == sorted(names[:-1]) and names[-1] == "model at typical moderator values"
+    assert "90%" in ax.get_xlabel()
+
+
+def test_forest_plot_values_and_summary_row() -> None:
+    from scipy.stats import norm
+
+    from envlink.report import model_figures
+
+    t = _table()
+    fit = envlink.MetaRegression().fit(t)  # the pooled effect
+    forest = next(f for f in model_figures(t, fit, forest_order="effect") if f.name == "forest")
+    ax = forest.figure.axes[0]
+    side = next(a for a in forest.figure.axes[0].child_axes)
+    values = [tick.get_text() for tick in side.get_yticklabels()]
+    assert [tick.get_text() for tick in ax.get_yticklabels()][-1] == "pooled effect"
+    # largest effect first; each value is y [y - z se, y + z se] (normal quantile, common practice)
+    top = int(np.argmax(t["effect"]))
+    y, se = t["effect"][top], np.sqrt(t["variance"][top])
+    z = norm.ppf(0.975)
+    assert values[0] == f"{y:.2f} [{y - z * se:.2f}, {y + z * se:.2f}]"
+    pooled = fit.coefficients_.iloc[0]
+    assert values[-1] == f"{pooled['estimate']:.2f} [{pooled['ci_low']:.2f}, {pooled['ci_high']:.2f}]"
+
+
+def test_bad_forest_order_is_refused_with_a_suggestion() -> None:
+    from envlink.errors import InputError
+    from envlink.report import model_figures
+
+    t = _table()
+    with pytest.raises(InputError, match="Did you mean 'precision'"):
+        model_figures(t, _fit(t), forest_order="precisoin")
+
+
+def test_write_figures_writes_pngs(tmp_path) -> None:
+    from envlink.report import write_figures
+
+    t = _table()
+    paths = [item.path for item in write_figures(tmp_path / "figs", t, _fit(t))]
+    assert [p.name for p in paths] == ["bubble.png", "forest.png", "funnel.png", "residuals.png"]
+    assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in paths)  # PNG signature
+
+
+def test_bubble_and_funnel_use_envlinks_palette() -> None:
+    from matplotlib.colors import to_hex
+
+    from envlink.report import model_figures, plots
+
+    t = _table()
+    figs = {f.name: f.figure for f in model_figures(t, _fit(t), egger={"intercept": 0.4, "slope": 0.2})}
+    bubble_lines = {to_hex(line.get_color()) for line in figs["bubble"].axes[0].get_lines()}
+    assert bubble_lines == {plots._CORAL, plots._SAND}  # fitted mean, dashed prediction edges
+    funnel_lines = {to_hex(line.get_color()) for line in figs["funnel"].axes[0].get_lines()}
+    assert plots._CORAL in funnel_lines and plots._SEA in funnel_lines

@@ -1,0 +1,161 @@
+"""The Excel writer: typed cells, a sheet of column units and descriptions, a provenance sheet.
+
+``NAME.xlsx`` (Office Open XML, written with openpyxl) has three sheets:
+
+- ``NAME`` (cut to Excel's 31 characters): the table, header first and frozen; numbers
+  are number cells, booleans true/false cells, dates date cells shown ``yyyy-mm-dd``,
+  text text cells (a cell starting with ``=`` stays text, never a formula); missing
+  values are empty cells;
+- ``columns``: each column's name, type, unit and description;
+- ``provenance``: the ``envlink`` section of the Data Package descriptor, one
+  ``key.path`` and value per row.
+
+A table longer than a worksheet (1,048,575 rows under the header), a cell longer than
+Excel's 32,767 characters, or a control character Excel cannot store is an
+:class:`~envlink.errors.InputError` naming the row and column.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Iterator, Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from envlink.errors import InputError
+from envlink.export.files import typed_columns
+
+__all__ = ["write_xlsx", "EXCEL_MAX_ROWS", "EXCEL_MAX_CELL"]
+
+EXCEL_MAX_ROWS = 1_048_576
+EXCEL_MAX_CELL = 32_767
+_SHEET_BAD = re.compile(r"[\[\]:*?/\\]")
+_DATE_FORMAT = "yyyy-mm-dd"
+
+
+def _flatten(obj: Any, prefix: str = "") -> Iterator[tuple[str, str]]:
+    """``(key.path, value)`` pairs of a JSON-like mapping, values as text."""
+    if isinstance(obj, Mapping):
+        for k, v in obj.items():
+            yield from _flatten(v, f"{prefix}.{k}" if prefix else str(k))
+    elif isinstance(obj, list) and any(isinstance(v, Mapping | list) for v in obj):
+        for i, v in enumerate(obj):
+            yield from _flatten(v, f"{prefix}[{i}]")
+    else:
+        yield prefix, obj if isinstance(obj, str) else json.dumps(obj, ensure_ascii=False)
+
+
+def _check_text(columns: list[tuple[dict[str, Any], pd.Series]]) -> None:
+    """Refuse text Excel cannot hold (before anything is written), naming the row and column."""
+    from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+
+    for field, s in columns:
+        if field["type"] != "string":
+            continue
+        for i, value in enumerate(s.tolist(), start=1):
+            if value is None:
+                continue
+            if m := ILLEGAL_CHARACTERS_RE.search(value):
+                raise InputError(
+                    f"Cannot write the Excel file: row {i}, column {field['name']!r} holds the control "
+                    f"character U+{ord(m.group()):04X}, which Excel files cannot store; remove it from the "
+                    "input, or leave 'xlsx' out of the formats."
+                )
+            if len(value) > EXCEL_MAX_CELL:
+                raise InputError(
+                    f"Cannot write the Excel file: row {i}, column {field['name']!r} holds "
+                    f"{len(value):,} characters; an Excel cell holds at most {EXCEL_MAX_CELL:,}."
+                )
+
+
+def _text_cell(ws: Any, value: str) -> Any:
+    """A text value; one starting with ``=`` as a text cell (never a formula)."""
+    from openpyxl.cell import WriteOnlyCell
+
+    if not value.startswith("="):
+        return value
+    cell = WriteOnlyCell(ws, value=value)
+    cell.data_type = "s"
+    return cell
+
+
+def _rows(ws: Any, columns: list[tuple[dict[str, Any], pd.Series]]) -> Iterator[list[Any]]:
+    """The data rows as Python values (None for missing), date cells formatted."""
+    from openpyxl.cell import WriteOnlyCell
+
+    values = []
+    for field, s in columns:
+        kind = field["type"]
+        if kind == "number":
+            v = s.to_numpy(dtype=np.float64)
+            values.append([None if not np.isfinite(x) else float(x) for x in v])
+        elif kind in ("integer", "boolean"):
+            values.append([None if x is pd.NA else (int(x) if kind == "integer" else bool(x)) for x in s.tolist()])
+        else:
+            values.append(s.tolist())
+    kinds = [f["type"] for f, _ in columns]
+    for row in zip(*values, strict=True):
+        out: list[Any] = []
+        for v, kind in zip(row, kinds, strict=True):
+            if v is None:
+                out.append(None)
+            elif kind == "date":
+                cell = WriteOnlyCell(ws, value=v)
+                cell.number_format = _DATE_FORMAT
+                out.append(cell)
+            elif kind == "string":
+                out.append(_text_cell(ws, v))
+            else:
+                out.append(v)
+        yield out
+
+
+def _sheet_name(name: str) -> str:
+    title = _SHEET_BAD.sub("_", name)[:31].strip("'") or "table"
+    return "table" if title.lower() in ("columns", "provenance", "history") else title
+
+
+def write_xlsx(df: pd.DataFrame, files: Mapping[str, Path], descriptor: Mapping[str, Any], name: str) -> None:
+    """``files["xlsx"]``: the table with typed cells, its ``columns`` and ``provenance`` sheets."""
+    from openpyxl import Workbook
+    from openpyxl.cell import WriteOnlyCell
+    from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+    from openpyxl.styles import Font
+
+    if len(df) >= EXCEL_MAX_ROWS:
+        raise InputError(
+            f"Cannot write the Excel file: the table has {len(df):,} rows and a worksheet holds "
+            f"{EXCEL_MAX_ROWS - 1:,} under its header; write 'csv' or 'parquet' instead."
+        )
+    columns = typed_columns(df, descriptor)
+    _check_text(columns)
+    wb = Workbook(write_only=True)
+    ws = wb.create_sheet(_sheet_name(name))
+    ws.freeze_panes = "A2"
+    bold = Font(bold=True)
+
+    def header(sheet: Any, labels: list[str]) -> list[Any]:
+        cells = []
+        for label in labels:
+            cell = WriteOnlyCell(sheet, value=label)
+            cell.font = bold
+            cells.append(cell)
+        return cells
+
+    ws.append(header(ws, [str(f["name"]) for f, _ in columns]))
+    for row in _rows(ws, columns):
+        ws.append(row)
+    about = wb.create_sheet("columns")
+    about.append(header(about, ["column", "type", "unit", "description"]))
+    for f, _ in columns:
+        about.append([f["name"], f["type"], f.get("unit"), f.get("description")])
+    prov = wb.create_sheet("provenance")
+    prov.append(header(prov, ["key", "value"]))
+    for key, value in _flatten(descriptor.get("envlink", {})):
+        clean = None if value is None else ILLEGAL_CHARACTERS_RE.sub("", value)[:EXCEL_MAX_CELL]
+        prov.append([key, None if clean is None else _text_cell(prov, clean)])
+    wb.save(files["xlsx"])
