@@ -145,7 +145,11 @@ def pause_for_tests(target: Path) -> None:
     import time
 
     Path(marker).write_text(str(target), encoding="utf-8")
-    time.sleep(float(os.environ.get("ENVLINK_TEST_PAUSE_SECONDS", "60")))
+    # Short slices: a signal whose C handler ran in another thread (the kernel may hand a
+    # process-wide signal to any thread) still reaches its Python handler within 50 ms.
+    end = time.monotonic() + float(os.environ.get("ENVLINK_TEST_PAUSE_SECONDS", "60"))
+    while (left := end - time.monotonic()) > 0:
+        time.sleep(min(left, 0.05))
 
 
 def probe_writable(folder: str | os.PathLike[str]) -> None:

@@ -165,7 +165,10 @@ def stop_at_pause(case: Case, folder: Path) -> tuple[int, str]:
             time.sleep(0.05)
         assert any(_temporary(p) for p in folder.rglob(".*")), "no temporary file at the pause"
         proc.send_signal(case.signal)
-        _, err = proc.communicate(timeout=EXIT_TIMEOUT)
+        try:
+            _, err = proc.communicate(timeout=EXIT_TIMEOUT)
+        except subprocess.TimeoutExpired:
+            raise AssertionError(f"still running {EXIT_TIMEOUT} s after signal {case.signal}") from None
     finally:
         if proc.poll() is None:
             proc.kill()
