@@ -55,7 +55,10 @@ def test_tiny_tau2_matches_independent_maximisation(method, restricted):
                                    bounds=(0.0, 20.0), method="bounded",
                                    options={"xatol": 1e-13, "maxiter": 2000})
     assert res.success and 1e-10 < res.x * 1e-9 < 1e-8  # an interior maximum near 3e-9
-    assert_allclose(m.tau2_, res.x * 1e-9, rtol=1e-6)  # the optimiser's own tolerance
+    # a coarse check: a bounded Brent search stops once the log-likelihood is flat to
+    # about sqrt(machine eps), which places a maximum only to a few parts in 1e6
+    # (scipy 1.17 stops here at 2.3e-6); the score root below is the tight check
+    assert_allclose(m.tau2_, res.x * 1e-9, rtol=1e-5)
     # tighter: the root of the dense score (the derivative of the same log-likelihood)
     root = optimize.brentq(lambda s: _dense_score(df, s * 1e-9, restricted), 0.2, 20.0,
                            xtol=1e-14, rtol=1e-15) * 1e-9
