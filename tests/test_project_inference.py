@@ -164,6 +164,22 @@ def test_checks_read_back_from_fit_json_and_the_report_of_the_run_folder(run, tm
     assert "The window scan tried 4 windows: family-wise p over 4 windows" in html
     assert "Moran&#x27;s I" in html or "Moran's I" in html
     assert "Imprecise dates" in html and "Small-study checks" in html
+    # the figures of the run's own report are drawn again: the scan's null maxima come from
+    # fit.json, the residual funnel from the refitted model (the same rows and estimates)
+    own = run.paths["report"].read_text()
+    for caption in ("The largest statistic over the family in each permutation",
+                    "Residuals of the fitted model against their sampling SE"):
+        assert caption in own and caption in html, caption
+        # the same points give the same PNG bytes (matplotlib draws them deterministically)
+        assert _image_before(own, caption) == _image_before(html, caption), caption
+    assert len(fit["scan"]["null_maxima"]) == fit["scan"]["n_permutations"]
+    assert checks.scan is not None and len(checks.scan.maxima) == fit["scan"]["n_permutations"]
+
+
+def _image_before(html: str, caption: str) -> str:
+    """The embedded PNG of the figure whose alt text starts with ``caption``."""
+    start = html.index(f'<img alt="{caption}')
+    return html[html.index("base64,", start):html.index('"', html.index("base64,", start))]
 
 
 def test_schema_errors_name_the_key(tmp_path: Path) -> None:

@@ -161,6 +161,11 @@ def run(args: argparse.Namespace) -> int:
     model, data = fit_table(args, table)
     for note in model.notes_:
         print(f"envlink report: note: {command_line_text(note, PARAM_OPTIONS)}", file=sys.stderr)
+    inference = extras.get("inference")
+    if inference is not None and inference.bias is not None:  # recorded without its funnel's points
+        from envlink.metareg.bias import with_funnel_points
+
+        inference.bias = with_funnel_points(inference.bias, model)
     used = data[model.included_]
     egger = egger_of(used[args.effect].to_numpy(float), used[args.variance].to_numpy(float))
     write_model_outputs(model, data.assign(fit_included=model.included_), effect=args.effect,

@@ -22,7 +22,7 @@ an Egger-type test flags that without any bias: :data:`PROPORTION_CAUTION` says 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -31,6 +31,7 @@ from envlink.errors import EnvlinkError, MetaRegressionWarning, ModelError
 from envlink.metareg.design import Design
 
 __all__ = ["SmallStudyTest", "BiasChecks", "small_study_test", "bias_checks",
+           "funnel_points", "with_funnel_points",
            "PROPORTION_CAUTION", "PRECISION_TERM"]
 
 #: the name of the added moderator
@@ -165,7 +166,7 @@ def bias_checks(model: Any, *, one_group_proportion: bool = False,
     from envlink.metareg.diagnostics import fail_safe_n, trim_and_fill
 
     y, v, X = model.design_.dense()
-    resid = y - X @ model.coef_
+    resid, resid_se = funnel_points(model)
     notes: list[str] = []
     try:
         ss: SmallStudyTest | None = small_study_test(model)
@@ -189,4 +190,49 @@ def bias_checks(model: Any, *, one_group_proportion: bool = False,
     else:
         notes.append("Trim-and-fill not run: it has no form with moderators or nesting.")
     cautions = [PROPORTION_CAUTION] if one_group_proportion else []
-    return BiasChecks(_model_words(model), ss, resid, np.sqrt(v), fsn, null, tf, cautions, notes)
+    return BiasChecks(_model_words(model), ss, resid, resid_se, fsn, null, tf, cautions, notes)
+
+
+def funnel_points(model: Any) -> tuple[np.ndarray, np.ndarray]:
+    """The residual funnel's points of a fitted model: residuals and their sampling SEs.
+
+    Parameters
+    ----------
+    model : MetaRegression
+        Fitted.
+
+    Returns
+    -------
+    residual, se : numpy.ndarray
+        ``y - X b`` of the rows in the fit, and ``sqrt(v)``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from envlink.metareg.model import MetaRegression
+    >>> df = pd.DataFrame({"effect": [0.1, 0.5, 0.3], "variance": [0.04, 0.01, 0.09]})
+    >>> r, se = funnel_points(MetaRegression().fit(df))
+    >>> se.round(2).tolist()
+    [0.2, 0.1, 0.3]
+    """
+    y, v, X = model.design_.dense()
+    return y - X @ model.coef_, np.sqrt(v)
+
+
+def with_funnel_points(checks: BiasChecks, model: Any) -> BiasChecks:
+    """``checks`` read back from a fit's JSON, with its funnel's points from ``model``
+    refitted on the same rows (the JSON does not hold them); unchanged when it has them.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from envlink.metareg.model import MetaRegression
+    >>> fit = MetaRegression().fit(pd.DataFrame({"effect": [0.1, 0.5], "variance": [0.04, 0.01]}))
+    >>> empty = BiasChecks("m", None, np.zeros(0), np.zeros(0), None, None, None)
+    >>> len(with_funnel_points(empty, fit).residual)
+    2
+    """
+    if len(checks.residual):
+        return checks
+    resid, se = funnel_points(model)
+    return replace(checks, residual=resid, residual_se=se)

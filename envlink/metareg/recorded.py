@@ -4,10 +4,10 @@ A project run writes every check that ran into the sections of ``fit.json``
 (:meth:`envlink.metareg.checks.Checks.add_to`). ``envlink report RUN_FOLDER`` refits
 the model from the enriched table, which is cheap, but does not rerun a window scan,
 imputed dates or permutations, which are not: :func:`checks_from_result` rebuilds their
-result objects from what the run recorded, so the report states exactly what the run's
-p-values were corrected for. What the JSON does not hold is left out of the report
-rather than invented: the permutation maxima of a scan (its null-distribution figure)
-and the residual funnel of the small-study checks (their points).
+result objects from what the run recorded (a scan's permutation maxima included, for its
+null-distribution figure), so the report states exactly what the run's p-values were
+corrected for. The points of the small-study checks' residual funnel are not recorded:
+they come from the refitted model (:func:`envlink.metareg.bias.with_funnel_points`).
 """
 
 from __future__ import annotations
@@ -43,6 +43,7 @@ def _scan(d: dict[str, Any]) -> Any:
     return ScanResult(table, d["best_window"], d.get("family_p"), int(d["n_windows"]),
                       int(d["n_permutations"]), d.get("seed"), d["scheme"], d["method"], d["test"],
                       d.get("moderators"), d.get("nested"), int(d["k"]), d["statistic"],
+                      maxima=np.array([_float(m) for m in d.get("null_maxima", [])], dtype=np.float64),
                       notes=list(d.get("notes", [])))
 
 

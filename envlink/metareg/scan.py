@@ -145,6 +145,7 @@ class ScanResult:
             "method": self.method, "test": self.test, "statistic": self.statistic_kind,
             "moderators": self.moderators, "nested": self.nested, "k": self.k,
             "caution": self.caution(), "windows": rows, "notes": list(self.notes),
+            "null_maxima": [_plain(float(m)) for m in np.asarray(self.maxima, dtype=np.float64)],
         }
 
 

@@ -85,7 +85,7 @@ def _checks_section(inference: Any) -> str:
     bias = getattr(inference, "bias", None)
     if bias is not None:
         out += "<h3>Small-study checks</h3>" + _lines(bias.lines())
-        if len(bias.residual):  # a check read back from fit.json has no funnel points
+        if len(bias.residual):  # envlink report fills them from its refitted model
             out += _figure(scanplots.residual_funnel(bias.residual, bias.residual_se,
                                                      label=f"Residual funnel ({bias.model})"),
                            "Residuals of the fitted model against their sampling SE.")
