@@ -239,29 +239,29 @@ def test_recipe_a_tau2_estimator(tmp_path: Path, capsys: pytest.CaptureFixture[s
                   aliases=("no-heterogeneity",),
                   info={"words": "no heterogeneity", "multilevel": False, "likelihood": None})
     bcg = bcg_table()
-    bcg["nt"], bcg["nc"] = bcg["tpos"] + bcg["tneg"], bcg["cpos"] + bcg["cneg"]
+    bcg["nt"], bcg["nc"] = bcg["vacc_tb"] + bcg["vacc_ok"], bcg["ctrl_tb"] + bcg["ctrl_ok"]
     bcg.assign(lat=-9.5, lon=-117.2, when="March 2008").to_csv(tmp_path / "bcg.csv", index=False)
     project = tmp_path / "project.toml"
     project.write_text(_toml({
         "studies": {"path": "bcg.csv"}, "locate": {"lat": "lat", "lon": "lon", "period": "when"},
         "effects": {"kind": "log_risk_ratio"},
-        "effects.columns": {"events1": "tpos", "total1": "nt", "events2": "cpos", "total2": "nc"},
-        "model": {"moderators": "ablat", "method": "No_Heterogeneity"},
+        "effects.columns": {"events1": "vacc_tb", "total1": "nt", "events2": "ctrl_tb", "total2": "nc"},
+        "model": {"moderators": "latitude_abs", "method": "No_Heterogeneity"},
         "export": {"formats": ["csv"], "report": False},
     }), encoding="utf-8")
     with registered(ESTIMATORS, entry):
-        fit = envlink.MetaRegression(method="zero", moderators="ablat").fit(bcg, effect="yi", variance="vi")
+        fit = envlink.MetaRegression(method="zero", moderators="latitude_abs").fit(bcg, effect="es", variance="es_var")
         assert fit.method_ == "ZERO" and fit.tau2_ == 0.0
         # with tau² = 0 the model is weighted least squares with weights 1/v and a known
         # scale of 1 (statsmodels 0.15: WLS(...).fit(cov_type="fixed scale"))
-        ref = WLS(bcg["yi"], np.column_stack([np.ones(len(bcg)), bcg["ablat"]]),
-                  weights=1 / bcg["vi"]).fit(cov_type="fixed scale")
+        ref = WLS(bcg["es"], np.column_stack([np.ones(len(bcg)), bcg["latitude_abs"]]),
+                  weights=1 / bcg["es_var"]).fit(cov_type="fixed scale")
         assert_allclose(fit.coef_, ref.params, rtol=1e-10)
         assert_allclose(fit.se_, ref.bse, rtol=1e-10)
         # the command line: --method, its --help, and the JSON result
         out = tmp_path / "fit.json"
-        assert main(["fit", str(tmp_path / "bcg.csv"), "--effect", "yi", "--variance", "vi",
-                     "--moderators", "ablat", "--method", "no_heterogeneity", "--json", str(out)]) == 0
+        assert main(["fit", str(tmp_path / "bcg.csv"), "--effect", "es", "--variance", "es_var",
+                     "--moderators", "latitude_abs", "--method", "no_heterogeneity", "--json", str(out)]) == 0
         result = json.loads(out.read_text(encoding="utf-8"))
         assert result["model"]["tau2_method"] == "ZERO" and result["heterogeneity"]["tau2"] == 0.0
         assert_allclose([c["estimate"] for c in result["coefficients"]["table"]], ref.params, rtol=1e-10)
@@ -272,7 +272,7 @@ def test_recipe_a_tau2_estimator(tmp_path: Path, capsys: pytest.CaptureFixture[s
         assert_allclose(run.fit.coef_, ref.params, rtol=1e-10)
         assert "| `ZERO` | `no-heterogeneity` |" in ESTIMATORS.doc_table()
     with pytest.raises(InputError, match="'method' parameter of MetaRegression"):
-        envlink.MetaRegression(method="zero").fit(bcg, effect="yi", variance="vi")
+        envlink.MetaRegression(method="zero").fit(bcg, effect="es", variance="es_var")
     with pytest.raises(InputError, match="the key 'model.method' must be one of"):
         load_project(project)
 

@@ -213,7 +213,7 @@ def test_parse_numbers_a_word_with_a_dot_does_not_hide_decimal_commas() -> None:
 
 def test_number_columns_reads_text_numbers_and_names_bad_cells() -> None:
     t = pd.DataFrame({"depth": ["9,9", "\u22123", "", "12"], "zone": ["reef", "flat", "", "reef"],
-                      "yi": ["x", "y", "", "z"]})
+                      "es": ["x", "y", "", "z"]})
     got = number_columns(t, ["depth", "zone", "depth"])
     assert list(got) == ["depth"] and got["depth"].dtype == np.float64
     np.testing.assert_array_equal(got["depth"], [9.9, -3.0, np.nan, 12.0])
@@ -221,9 +221,9 @@ def test_number_columns_reads_text_numbers_and_names_bad_cells() -> None:
     with pytest.raises(InputError, match=r"^--moderators: the column 'depth' holds numbers, but "
                        r"row 2 'approx\. 5' is not a number\. .*; write C\(depth\) if"):
         number_columns(t, ["depth"], where="--moderators", hint="write C({col}) if it is a category")
-    with pytest.raises(InputError, match=r"'yi' must hold numbers, but row 1 'x', row 2 'y', "
+    with pytest.raises(InputError, match=r"'es' must hold numbers, but row 1 'x', row 2 'y', "
                        r"row 4 'z' are not a number\. Write a number or leave the cell blank\.$"):
-        number_columns(t, ["yi"], numbers=["yi"], hint="write C({col})")
+        number_columns(t, ["es"], numbers=["es"], hint="write C({col})")
 
 
 def test_check_output_path_other_suffixes(tmp_path) -> None:

@@ -71,7 +71,7 @@ def grids() -> list[Case]:
     return c
 
 
-FIT_HEADER = ("study", "yi", "vi", "x", "zone", "xs", "my x", "depth.m", "one", "word x")
+FIT_HEADER = ("study", "es", "es_var", "x", "zone", "xs", "my x", "depth.m", "one", "word x")
 
 
 def _fit_rows(rng: random.Random) -> list[list[str]]:
@@ -89,7 +89,7 @@ FIT_TABLE = csv_bytes(FIT_HEADER, _fit_rows(random.Random(11)))
 
 def _f(id: str, rows: list[list[str]], rc: int, messages: tuple[str, ...] = (), extra: tuple[str, ...] = (),
        output: str = "", out_rows: tuple = ()) -> Case:
-    return Case(id, "fits", ("fit", "t.csv", "--effect", "yi", "--variance", "vi", *extra),
+    return Case(id, "fits", ("fit", "t.csv", "--effect", "es", "--variance", "es_var", *extra),
                 (("t.csv", csv_bytes(FIT_HEADER, rows)),), rc, messages, table="t.csv", output=output,
                 rows=out_rows, unchanged=("t.csv",))
 
@@ -108,17 +108,17 @@ def fits() -> list[Case]:
         rows = [r[:] for r in base]
         r = rng.randint(1, 10)
         rows[r - 1][2] = value
-        c.append(_f(f"fit-bad-variance-{n}", rows, 2, (f"row {r}\\b", "'vi'")))
+        c.append(_f(f"fit-bad-variance-{n}", rows, 2, (f"row {r}\\b", "'es_var'")))
     for n, value in enumerate(["inf", "-inf", "Infinity", "1e308", "-1e308", "1e80", "1e400"]):
         rows = [r[:] for r in base]
         r = rng.randint(1, 10)
         rows[r - 1][1] = value
-        c.append(_f(f"fit-bad-effect-{n}", rows, 2, (f"row {r}\\b", "'yi'")))
+        c.append(_f(f"fit-bad-effect-{n}", rows, 2, (f"row {r}\\b", "'es'")))
     for n, value in enumerate(["abc", "1.2.3", "12 %"]):
         rows = [r[:] for r in base]
         r = rng.randint(1, 10)
         rows[r - 1][1] = value
-        c.append(_f(f"fit-effect-not-a-number-{n}", rows, 2, (f"row {r}\\b", "'yi'")))
+        c.append(_f(f"fit-effect-not-a-number-{n}", rows, 2, (f"row {r}\\b", "'es'")))
     for n, value in enumerate(["", "NA", "nan"]):  # missing: left out with a note, not an error
         rows = [r[:] for r in base]
         r = rng.randint(1, 10)
@@ -126,7 +126,7 @@ def fits() -> list[Case]:
         c.append(_f(f"fit-missing-effect-{n}", rows, 0, (f"note: .*row {r}\\b",)))
     formulas = [
         ("I(x.__class__)", 2, ("moderator", r"'I\(x\.__class__\)'")), ("x +", 2, (r"'x \+'",)), ("C(zone", 2, ("'C\\(zone'",)),
-        ("yi ~ x", 2, ("'yi ~ x'",)), ("x | zone", 2, ()), ("C(zone, Treatment('nope'))", 2, ("nope",)),
+        ("es ~ x", 2, ("'es ~ x'",)), ("x | zone", 2, ()), ("C(zone, Treatment('nope'))", 2, ("nope",)),
         ("nope", 2, ("'nope'",)), ("np.nope(x)", 2, ()), ("lambda: 1", 2, ()), ("__import__('os')", 2, ()),
         ("x ** ", 2, ()), ("(x", 2, ()), ("x + + zone", 0, ()), ("`my x`", 0, ()), ("`depth.m`", 0, ()),
         ("xs", 0, ()), ("bs(x, df=3)", 0, ()), ("bs(xs, df=3)", 0, ()), ("C(zone)", 0, ()),
@@ -152,7 +152,7 @@ def fits() -> list[Case]:
         _f("fit-tau2", base, 2, ("--tau2",), extra=("--tau2", "-1")),
         _f("fit-all-effects-blank", [[r[0], "", *r[2:]] for r in base], 1, ()),
     ]
-    c[-7] = Case(c[-7].id, "fits", ("fit", "t.csv", "--effect", "nope", "--variance", "vi"), c[-7].files, 2,
+    c[-7] = Case(c[-7].id, "fits", ("fit", "t.csv", "--effect", "nope", "--variance", "es_var"), c[-7].files, 2,
                  ("'nope'",), table="t.csv", unchanged=("t.csv",))
     return c
 

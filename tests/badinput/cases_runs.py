@@ -11,7 +11,7 @@ from badinput.corpus import Case, csv_bytes, grid_bytes
 TABLE = csv_bytes(HEADER, ROWS)
 GAZ = csv_bytes(("name", "lat", "lon"), [["Récif Nord", "-8.5", "160.25"]])
 PREVIOUS = b"a previous output that must survive\n"
-FIT = ("fit", "t.csv", "--effect", "yi", "--variance", "vi")
+FIT = ("fit", "t.csv", "--effect", "es", "--variance", "es_var")
 
 
 def _o(id: str, argv: tuple[str, ...], rc: int, messages: tuple[str, ...] = (), files: dict[str, bytes] | None = None,
@@ -111,7 +111,7 @@ def interrupts() -> list[Case]:
                      "-o", "o.csv", "--force"),
                     {"t.csv": csv_bytes(("k", "n"), [["3", "10"], ["5", "12"]]), "o.csv": PREVIOUS},
                     "o.csv", ("o.csv",)),
-        "report": (("report", "t.csv", "--effect", "yi", "--variance", "vi", "-o", "r.html", "--force"),
+        "report": (("report", "t.csv", "--effect", "es", "--variance", "es_var", "-o", "r.html", "--force"),
                    {"t.csv": FIT_TABLE, "r.html": PREVIOUS}, "r.html", ("r.html",)),
         "demo": (("demo", "--out", "d", "--force", "--no-progress"),
                  {"d/enriched.csv": PREVIOUS, "d/report.html": PREVIOUS}, ".cells",

@@ -111,7 +111,7 @@ def test_numbers_in_text_keep_the_length(n: int) -> None:
     _run(prop, n)
 
 
-_COLUMNS = ["x", "z", "zone", "`my x`", "`depth.m`", "nope", "np", "C", "yi"]
+_COLUMNS = ["x", "z", "zone", "`my x`", "`depth.m`", "nope", "np", "C", "es"]
 _TOKENS = st.sampled_from(["+", "-", "*", ":", "**", "/", "(", ")", ",", "~", "|", " ", "0", "1", "2", "0.5",
                            "I(", "C(", "np.log(", "bs(", "center(", "Treatment(", "'reef'", "df=3", "`",
                            ".", "__class__", "[", "]", "x", "zone"])
@@ -123,7 +123,7 @@ def _fit_table() -> pd.DataFrame:
     rng = np.random.default_rng(0)
     k = 12
     x = rng.uniform(0, 5, k)
-    return pd.DataFrame({"yi": 0.1 + 0.05 * x + rng.normal(0, 0.05, k), "vi": rng.uniform(0.01, 0.05, k),
+    return pd.DataFrame({"es": 0.1 + 0.05 * x + rng.normal(0, 0.05, k), "es_var": rng.uniform(0.01, 0.05, k),
                          "x": x, "z": rng.normal(0, 1, k), "zone": rng.choice(["reef", "flat"], k),
                          "my x": [f"{v:.2f}".replace(".", ",") for v in x], "depth.m": x, "C": x})
 
@@ -149,8 +149,8 @@ def test_formulas_fit_or_say_why(n: int) -> None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", EnvlinkWarning)
             try:
-                data = read_model_columns(table, effect="yi", variance="vi", moderators=formula)
-                frame = model_frame(data, effect="yi", variance="vi", moderators=formula)
+                data = read_model_columns(table, effect="es", variance="es_var", moderators=formula)
+                frame = model_frame(data, effect="es", variance="es_var", moderators=formula)
                 MetaRegression(moderators=formula).fit(frame)
             except (InputError, ModelError):
                 return

@@ -28,7 +28,7 @@ import envlink
 from envlink.cli import main
 from envlink.errors import InputError, InvalidValueError, TableWarning
 
-EFFECTS = "study,yi,vi,x,depth.m\na,0.1,0.01,1,1.5\nb,0.2,0.02,2,2.5\nc,0.3,0.03,3,3.5\nd,0.25,0.02,4,4.5\ne,0.5,0.04,5,5.5\n"
+EFFECTS = "study,es,es_var,x,depth.m\na,0.1,0.01,1,1.5\nb,0.2,0.02,2,2.5\nc,0.3,0.03,3,3.5\nd,0.25,0.02,4,4.5\ne,0.5,0.04,5,5.5\n"
 
 
 def _cli(argv: list[str], cwd: Path) -> tuple[int, str]:
@@ -47,7 +47,7 @@ def _cli(argv: list[str], cwd: Path) -> tuple[int, str]:
 def test_influence_output_never_replaces_the_input_table(tmp_path: Path) -> None:
     (tmp_path / "t.csv").write_text(EFFECTS)
     for extra in ([], ["--force"]):
-        rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi", "--influence", "t.csv", *extra],
+        rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var", "--influence", "t.csv", *extra],
                        tmp_path)
         assert rc == 2 and "'t.csv' is also an input" in err and "TABLE" in err
         assert (tmp_path / "t.csv").read_text() == EFFECTS
@@ -103,25 +103,25 @@ def test_degenerate_gazetteer_polygons_are_named_not_located(tmp_path: Path) -> 
 def test_a_random_effect_with_one_level_is_refused(tmp_path: Path) -> None:
     (tmp_path / "t.csv").write_text(EFFECTS.replace("\na,", "\nA,").replace("\nb,", "\nA,").replace(
         "\nc,", "\nA,").replace("\nd,", "\nA,").replace("\ne,", "\nA,"))
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi", "--nested", "study"], tmp_path)
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var", "--nested", "study"], tmp_path)
     assert rc == 2 and "random effect of 'study'" in err and "--nested study" in err
 
 
 @pytest.mark.parametrize("value", ["1e308", "-1e308"])
 def test_effects_beyond_float64_are_named_not_fitted(tmp_path: Path, value: str) -> None:
     (tmp_path / "t.csv").write_text(EFFECTS.replace("b,0.2,", f"b,{value},"))
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi"], tmp_path)
-    assert rc == 2 and re.search(r"error: Effect 'yi' is too large .* row 2 ", err), err
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var"], tmp_path)
+    assert rc == 2 and re.search(r"error: Effect 'es' is too large .* row 2 ", err), err
     with pytest.raises(InvalidValueError, match="row 2"):
         envlink.MetaRegression().fit(y=[0.1, float(value), 0.3], v=[0.01, 0.02, 0.03])
 
 
-@pytest.mark.parametrize("column, value", [("vi", "0"), ("vi", "-0.02"), ("vi", "inf"), ("yi", "inf"),
-                                           ("yi", "-inf")])
+@pytest.mark.parametrize("column, value", [("es_var", "0"), ("es_var", "-0.02"), ("es_var", "inf"), ("es", "inf"),
+                                           ("es", "-inf")])
 def test_invalid_values_in_fit_are_bad_input(tmp_path: Path, column: str, value: str) -> None:
-    text = EFFECTS.replace("b,0.2,0.02,", f"b,0.2,{value}," if column == "vi" else f"b,{value},0.02,")
+    text = EFFECTS.replace("b,0.2,0.02,", f"b,0.2,{value}," if column == "es_var" else f"b,{value},0.02,")
     (tmp_path / "t.csv").write_text(text)
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi"], tmp_path)
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var"], tmp_path)
     assert rc == 2 and re.search(rf"error: .*'{column}' must be .*row 2 has", err), err
 
 
@@ -138,7 +138,7 @@ def test_a_file_that_is_not_a_grid_is_bad_input_in_run(tmp_path: Path) -> None:
 @pytest.mark.parametrize("formula", ["I(x.__class__)", "C(x, Treatment(9))"])
 def test_any_formula_error_is_bad_input(tmp_path: Path, formula: str) -> None:
     (tmp_path / "t.csv").write_text(EFFECTS)
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi", "--moderators", formula], tmp_path)
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var", "--moderators", formula], tmp_path)
     assert rc == 2 and "unexpected error" not in err and "Cannot build the moderators" in err
 
 
@@ -146,11 +146,11 @@ def test_backticked_columns_with_dots_and_the_suggested_fix_is_valid_syntax(tmp_
     from formulaic import Formula
 
     (tmp_path / "t.csv").write_text(EFFECTS)
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi", "--moderators", "`depth.m`"], tmp_path)
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var", "--moderators", "`depth.m`"], tmp_path)
     assert rc == 0, err
     (tmp_path / "w.csv").write_text(EFFECTS.replace("depth.m", "my x").replace("c,0.3,0.03,3,3.5",
                                                                                 "c,0.3,0.03,3,deep"))
-    rc, err = _cli(["fit", "w.csv", "--effect", "yi", "--variance", "vi", "--moderators", "`my x`"], tmp_path)
+    rc, err = _cli(["fit", "w.csv", "--effect", "es", "--variance", "es_var", "--moderators", "`my x`"], tmp_path)
     fix = re.search(r"write (C\(.*?\)) in --moderators", err)
     assert rc == 2 and fix is not None, err
     Formula(fix.group(1))  # the suggestion parses
@@ -212,13 +212,13 @@ def test_an_io_error_reading_a_valid_table_is_a_failure_of_the_run(tmp_path: Pat
         return real(self)
 
     monkeypatch.setattr(Path, "read_bytes", failing)
-    rc, err = _cli(["fit", "t.csv", "--effect", "yi", "--variance", "vi"], tmp_path)
+    rc, err = _cli(["fit", "t.csv", "--effect", "es", "--variance", "es_var"], tmp_path)
     assert rc == 1 and "failed: Cannot read table 't.csv': input/output error" in err
-    rc, err = _cli(["fit", "nope.csv", "--effect", "yi", "--variance", "vi"], tmp_path)
+    rc, err = _cli(["fit", "nope.csv", "--effect", "es", "--variance", "es_var"], tmp_path)
     assert rc == 2 and "'nope.csv': no such file" in err  # a path that is not there: bad input
 
 
 def test_debug_shows_the_traceback_of_bad_input(tmp_path: Path) -> None:
     (tmp_path / "t.csv").write_text(EFFECTS)
-    rc, err = _cli(["--debug", "fit", "t.csv", "--effect", "nope", "--variance", "vi"], tmp_path)
+    rc, err = _cli(["--debug", "fit", "t.csv", "--effect", "nope", "--variance", "es_var"], tmp_path)
     assert rc == 2 and "Traceback" in err and "error: The table has no column 'nope'" in err

@@ -53,7 +53,7 @@ def test_dir_lists_fitted_and_derived_statistics() -> None:
 
 
 def test_unfitted_use_raises_a_clear_error() -> None:
-    m = MetaRegression(moderators="ablat")
+    m = MetaRegression(moderators="latitude_abs")
     for name in (*FITTED, *DERIVED):
         assert not hasattr(m, name)
         with pytest.raises(NotFittedError, match="not fitted yet.*call fit"):
@@ -64,16 +64,16 @@ def test_unfitted_use_raises_a_clear_error() -> None:
 
 
 @pytest.mark.parametrize("options", [
-    {"moderators": "ablat"},
-    {"moderators": "ablat", "tau2": 0.05},  # R² carries a note
-    {"moderators": "ablat", "nested": "study", "test": "knapp-hartung"},  # tau2_ci carries one
-    {"moderators": "ablat", "method": "paule-mandel", "cluster": "pair"},
+    {"moderators": "latitude_abs"},
+    {"moderators": "latitude_abs", "tau2": 0.05},  # R² carries a note
+    {"moderators": "latitude_abs", "nested": "study", "test": "knapp-hartung"},  # tau2_ci carries one
+    {"moderators": "latitude_abs", "method": "paule-mandel", "cluster": "pair"},
 ])
 def test_to_dict_and_summary_do_not_depend_on_what_was_read(options) -> None:
     bcg = table().assign(study=[i // 2 for i in range(13)], pair=[i // 4 for i in range(13)])
-    first = MetaRegression(**options).fit(bcg, effect="yi", variance="vi")
+    first = MetaRegression(**options).fit(bcg, effect="es", variance="es_var")
     reference, text = first.to_dict(), str(first.summary())
-    other = MetaRegression(**options).fit(bcg, effect="yi", variance="vi")
+    other = MetaRegression(**options).fit(bcg, effect="es", variance="es_var")
     warnings_before = list(other.warnings_)
     _read_everything(other)
     assert other.to_dict() == reference
@@ -84,7 +84,7 @@ def test_to_dict_and_summary_do_not_depend_on_what_was_read(options) -> None:
 
 
 def test_statistics_needing_an_option_name_it() -> None:
-    m = MetaRegression(moderators="ablat").fit(table(), effect="yi", variance="vi")
+    m = MetaRegression(moderators="latitude_abs").fit(table(), effect="es", variance="es_var")
     with pytest.raises(ModelError, match=r"I2_components_ is defined only for a model fitted "
                                          r"with nested=") as info:
         _ = m.I2_components_
@@ -100,7 +100,7 @@ def test_constructor_is_keyword_only() -> None:
 
 
 def test_get_params_set_params_round_trip_like_clone() -> None:
-    m = MetaRegression(method="dl", moderators="ablat", level=0.9, tol=1e-9)
+    m = MetaRegression(method="dl", moderators="latitude_abs", level=0.9, tol=1e-9)
     params = m.get_params(deep=True)
     assert params == m.get_params(deep=False)
     assert list(params) == ["method", "test", "tau2", "moderators", "intercept", "nested",
@@ -108,14 +108,14 @@ def test_get_params_set_params_round_trip_like_clone() -> None:
     twin = _clone(m)
     assert twin.get_params() == params and twin is not m
     assert twin.set_params(**params) is twin
-    a = m.fit(table(), effect="yi", variance="vi").to_dict()
-    b = twin.fit(table(), effect="yi", variance="vi").to_dict()
+    a = m.fit(table(), effect="es", variance="es_var").to_dict()
+    b = twin.fit(table(), effect="es", variance="es_var").to_dict()
     assert a == b
 
 
 def test_set_params_unfits_and_refuses_unknown_names() -> None:
     bcg = table()
-    m = MetaRegression(moderators="ablat").fit(bcg, effect="yi", variance="vi")
+    m = MetaRegression(moderators="latitude_abs").fit(bcg, effect="es", variance="es_var")
     assert hasattr(m, "coef_") and m.R2_ is not None
     with pytest.raises(InputError, match=r"The '\*\*params' parameter of MetaRegression.set_params "
                                          r"must be .*; got 'methd'\. Did you mean 'method'"):
@@ -125,14 +125,14 @@ def test_set_params_unfits_and_refuses_unknown_names() -> None:
     assert not hasattr(m, "coef_") and not hasattr(m, "R2_")
     with pytest.raises(NotFittedError):
         m.to_dict()
-    refit = m.fit(bcg, effect="yi", variance="vi").to_dict()
-    fresh = MetaRegression(moderators="ablat", method="ML").fit(bcg, effect="yi", variance="vi")
+    refit = m.fit(bcg, effect="es", variance="es_var").to_dict()
+    fresh = MetaRegression(moderators="latitude_abs", method="ML").fit(bcg, effect="es", variance="es_var")
     assert refit == fresh.to_dict() and refit["model"]["tau2_method"] == "ML"
 
 
 def test_helpers_use_public_state_only() -> None:
     # the fitted design is public, and refitting it reproduces the model
-    m = MetaRegression(moderators="ablat").fit(table(), effect="yi", variance="vi")
+    m = MetaRegression(moderators="latitude_abs").fit(table(), effect="es", variance="es_var")
     again = _clone(m).fit(m.design_)
     np.testing.assert_array_equal(again.coef_, m.coef_)
     assert again.to_dict() == m.to_dict()

@@ -103,7 +103,7 @@ def test_trim_and_fill_l0_worked_by_hand() -> None:
     for _ in range(10):
         kept = sorted(y)[: k - k0]
         mu = sum(kept) / len(kept)
-        dev = [yi - mu for yi in y]
+        dev = [es - mu for es in y]
         order = sorted(range(k), key=lambda i: abs(dev[i]))
         rank = {i: r + 1 for r, i in enumerate(order)}  # no ties in this set
         t_n = sum(rank[i] for i in range(k) if dev[i] > 0)
@@ -125,7 +125,7 @@ def test_trim_and_fill_l0_worked_by_hand() -> None:
     assert_allclose(res.y[~res.filled], y, rtol=0, atol=0)
     assert_allclose(res.v, [1.0] * (k + res.k0), rtol=0)
     assert_allclose([res.estimate, res.se, res.tau2], [ref["estimate"], ref["se"], 0.0], rtol=1e-12, atol=1e-15)
-    q = sum((yi - ref["estimate"]) ** 2 for yi in res.y)
+    q = sum((es - ref["estimate"]) ** 2 for es in res.y)
     assert_allclose(q, ref["q_filled"], rtol=1e-10)  # below k - 1 = 8: DL tau² = 0
     assert_allclose(res.estimate_unadjusted, sum(y) / k, rtol=1e-12)
     z = stats.norm.isf(0.025)
@@ -136,7 +136,7 @@ def test_trim_and_fill_l0_worked_by_hand() -> None:
 def test_trim_and_fill_right_side_mirrors_left() -> None:
     ref = TRIMFILL_L0_HAND
     left = dg.trim_and_fill(ref["y"], ref["v"], side="left")
-    right = dg.trim_and_fill([-yi for yi in ref["y"]], ref["v"], side="right")
+    right = dg.trim_and_fill([-es for es in ref["y"]], ref["v"], side="right")
     assert right.k0 == left.k0 and right.side == "right"
     assert_allclose(right.y, -left.y, rtol=1e-12)
     assert_allclose([right.estimate, right.center], [-left.estimate, -left.center], rtol=1e-12)

@@ -57,14 +57,14 @@ def _dl_wls_stat(y, v, X):
 
 def test_permutation_p_matches_exact_enumeration():
     df = table().iloc[:7]
-    y, v = df["yi"].to_numpy(), df["vi"].to_numpy()
-    x = df["ablat"].to_numpy(float)
+    y, v = df["es"].to_numpy(), df["es_var"].to_numpy()
+    x = df["latitude_abs"].to_numpy(float)
     obs = abs(_dl_wls_stat(y, v, np.column_stack([np.ones(7), x])))
     perms = list(itertools.permutations(range(7)))
     ge = sum(abs(_dl_wls_stat(y, v, np.column_stack([np.ones(7), x[list(p)]]))) >= obs - 1e-12
              for p in perms)
     exact = ge / len(perms)
-    m = MetaRegression(method="DL", moderators="ablat").fit(df, effect="yi", variance="vi")
+    m = MetaRegression(method="DL", moderators="latitude_abs").fit(df, effect="es", variance="es_var")
     n = 2000
     res = m.permutation_test(n_permutations=n, seed=7, progress=False)
     se = np.sqrt(exact * (1 - exact) / n)
@@ -75,9 +75,9 @@ def test_permutation_p_matches_exact_enumeration():
 
 def test_permutation_reproducible_with_seed():
     df = table()
-    m = MetaRegression(moderators="ablat + year").fit(df, effect="yi", variance="vi")
+    m = MetaRegression(moderators="latitude_abs + year").fit(df, effect="es", variance="es_var")
     a = m.permutation_test(n_permutations=200, seed=42, progress=False)
     b = m.permutation_test(n_permutations=200, seed=42, progress=False)
     assert a.to_dict() == b.to_dict()
-    assert list(a.terms["term"]) == ["ablat", "year"]
+    assert list(a.terms["term"]) == ["latitude_abs", "year"]
     assert 0 < a.Q_M_p <= 1

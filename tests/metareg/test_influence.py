@@ -30,9 +30,9 @@ def _dl(y, v, X):
 @pytest.fixture(scope="module")
 def fitted():
     df = table()
-    m = MetaRegression(method="DL", moderators="ablat").fit(df, effect="yi", variance="vi")
-    y, v = df["yi"].to_numpy(), df["vi"].to_numpy()
-    X = np.column_stack([np.ones(13), df["ablat"].to_numpy(float)])
+    m = MetaRegression(method="DL", moderators="latitude_abs").fit(df, effect="es", variance="es_var")
+    y, v = df["es"].to_numpy(), df["es_var"].to_numpy()
+    X = np.column_stack([np.ones(13), df["latitude_abs"].to_numpy(float)])
     return m, y, v, X
 
 
@@ -43,8 +43,8 @@ def test_leave_one_out_matches_refits(fitted):
     for i in range(13):
         keep = np.arange(13) != i
         b, Vb, t2 = _dl(y[keep], v[keep], X[keep])
-        assert_allclose(loo.iloc[i][["intercept", "ablat"]].to_numpy(float), b, rtol=1e-8)
-        assert_allclose(loo.iloc[i]["se_ablat"], np.sqrt(Vb[1, 1]), rtol=1e-8)
+        assert_allclose(loo.iloc[i][["intercept", "latitude_abs"]].to_numpy(float), b, rtol=1e-8)
+        assert_allclose(loo.iloc[i]["se_latitude_abs"], np.sqrt(Vb[1, 1]), rtol=1e-8)
         assert_allclose(loo.iloc[i]["tau2"], t2, rtol=1e-8, atol=1e-15)
 
 

@@ -24,7 +24,7 @@ def _simulate(seed=3, S=25):
     x = rng.normal(size=k)
     v = rng.uniform(0.01, 0.08, k)
     y = 0.2 + 0.3 * x + rng.normal(0, 0.25, S)[study] + rng.normal(0, 0.12, k) + rng.normal(0, np.sqrt(v))
-    return pd.DataFrame({"study": [f"s{j:02d}" for j in study], "x": x, "yi": y, "vi": v})
+    return pd.DataFrame({"study": [f"s{j:02d}" for j in study], "x": x, "es": y, "es_var": v})
 
 
 def _negll(theta, y, v, X, study, reml):
@@ -42,8 +42,8 @@ def _negll(theta, y, v, X, study, reml):
 
 
 def _reference(df, reml):
-    y = df["yi"].to_numpy()
-    v = df["vi"].to_numpy()
+    y = df["es"].to_numpy()
+    v = df["es_var"].to_numpy()
     X = np.column_stack([np.ones(len(df)), df["x"].to_numpy()])
     study = pd.factorize(df["study"])[0]
     nm = optimize.minimize(lambda s: _negll(s**2, y, v, X, study, reml), [0.3, 0.3],
@@ -58,8 +58,8 @@ def _reference(df, reml):
 def test_multilevel_matches_dense_scipy(method):
     df = _simulate()
     ref, y, v, X, study = _reference(df, method == "REML")
-    m = MetaRegression(method=method, moderators="x", nested="study").fit(df, effect="yi",
-                                                                         variance="vi")
+    m = MetaRegression(method=method, moderators="x", nested="study").fit(df, effect="es",
+                                                                         variance="es_var")
     comps = np.array(list(m.variance_components_.values()))
     assert list(m.variance_components_) == ["between_study", "within_study"]
     assert_allclose(comps, ref, rtol=1e-5)
@@ -89,4 +89,4 @@ def test_multilevel_rejects_moment_methods():
     from envlink.errors import InputError
 
     with pytest.raises(InputError, match="'REML' or 'ML' for a nested"):
-        MetaRegression(method="DL", nested="study").fit(df, effect="yi", variance="vi")
+        MetaRegression(method="DL", nested="study").fit(df, effect="es", variance="es_var")

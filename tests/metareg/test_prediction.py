@@ -20,14 +20,14 @@ from envlink.metareg import MetaRegression
 
 def _statsmodels_dl():
     t = table()
-    res = combine_effects(t["yi"].to_numpy(), t["vi"].to_numpy(), method_re="dl")
+    res = combine_effects(t["es"].to_numpy(), t["es_var"].to_numpy(), method_re="dl")
     return t, float(res.mean_effect_re), float(res.sd_eff_w_re), float(res.tau2)
 
 
 def test_riley_interval_matches_its_formula():
     t, mu, se, tau2 = _statsmodels_dl()
     k = len(t)
-    m = MetaRegression(method="DL").fit(t, effect="yi", variance="vi")
+    m = MetaRegression(method="DL").fit(t, effect="es", variance="es_var")
     got = m.predict(prediction="riley").iloc[0]
     half = stats.t.ppf(0.975, k - 2) * np.sqrt(se**2 + tau2)
     assert_allclose(got["estimate"], mu, rtol=1e-10)
@@ -39,10 +39,10 @@ def test_riley_interval_matches_its_formula():
 
 def test_default_interval_uses_the_tests_distribution():
     t, mu, se, tau2 = _statsmodels_dl()
-    z = MetaRegression(method="DL").fit(t, effect="yi", variance="vi").predict().iloc[0]
+    z = MetaRegression(method="DL").fit(t, effect="es", variance="es_var").predict().iloc[0]
     half = stats.norm.ppf(0.975) * np.sqrt(se**2 + tau2)
     assert_allclose([z["pi_low"], z["pi_high"]], [mu - half, mu + half], rtol=1e-10)
-    kh = MetaRegression(method="DL", test="knapp-hartung").fit(t, effect="yi", variance="vi")
+    kh = MetaRegression(method="DL", test="knapp-hartung").fit(t, effect="es", variance="es_var")
     got = kh.predict().iloc[0]
     half = stats.t.ppf(0.975, len(t) - 1) * np.sqrt(got["se"] ** 2 + tau2)
     assert_allclose([got["pi_low"], got["pi_high"]], [mu - half, mu + half], rtol=1e-10)
@@ -50,7 +50,7 @@ def test_default_interval_uses_the_tests_distribution():
 
 def test_riley_with_moderators_uses_k_minus_p_minus_1():
     t = table()
-    m = MetaRegression(method="DL", moderators="ablat").fit(t, effect="yi", variance="vi")
+    m = MetaRegression(method="DL", moderators="latitude_abs").fit(t, effect="es", variance="es_var")
     got = m.predict(t.iloc[:2], prediction="Riley")
     half = stats.t.ppf(0.975, len(t) - 3) * np.sqrt(got["se"] ** 2 + m.tau2_)
     assert_allclose(got["pi_high"] - got["estimate"], half, rtol=1e-10)
@@ -58,7 +58,7 @@ def test_riley_with_moderators_uses_k_minus_p_minus_1():
 
 def test_prediction_rule_is_checked():
     t = table()
-    m = MetaRegression().fit(t.iloc[:2], effect="yi", variance="vi")
+    m = MetaRegression().fit(t.iloc[:2], effect="es", variance="es_var")
     with pytest.raises(InputError, match="Did you mean 'riley'"):
         m.predict(prediction="rilye")
     with pytest.raises(ModelError, match="needs at least 1 df"):
@@ -67,15 +67,15 @@ def test_prediction_rule_is_checked():
 
 def test_note_when_I2_is_zero_by_construction():
     t = table()
-    m = MetaRegression(tau2=0.0).fit(t, effect="yi", variance="vi")
+    m = MetaRegression(tau2=0.0).fit(t, effect="es", variance="es_var")
     assert m.I2_ == 0.0 and any("by construction" in n for n in m.notes_)
-    m = MetaRegression(tau2=0.1).fit(t, effect="yi", variance="vi")
+    m = MetaRegression(tau2=0.1).fit(t, effect="es", variance="es_var")
     assert not any("by construction" in n for n in m.notes_)
 
 
 def test_note_when_a_component_is_zero_with_few_multi_row_groups():
     t = table()
     t["study"] = [f"s{i // 2}" for i in range(13)]  # 6 studies with two trials, one with one
-    m = MetaRegression(moderators="ablat", nested="study").fit(t, effect="yi", variance="vi")
+    m = MetaRegression(moderators="latitude_abs", nested="study").fit(t, effect="es", variance="es_var")
     assert m.variance_components_["between_study"] == 0.0  # Colditz data: all within pairs
     assert any("between_study is estimated at 0" in n and "only 6 of 7" in n for n in m.notes_)

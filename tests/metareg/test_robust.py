@@ -32,7 +32,7 @@ def _data(seed=11, J=12):
     z = rng.integers(0, 2, k).astype(float)
     v = rng.uniform(0.02, 0.1, k)
     y = 0.1 + 0.2 * x - 0.1 * z + rng.normal(0, 0.2, J)[cl] + rng.normal(0, np.sqrt(v))
-    return pd.DataFrame({"cl": [f"c{j}" for j in cl], "x": x, "z": z, "yi": y, "vi": v})
+    return pd.DataFrame({"cl": [f"c{j}" for j in cl], "x": x, "z": z, "es": y, "es_var": v})
 
 
 def _dense_cr2(y, X, Phi, cl):
@@ -98,11 +98,11 @@ def test_cr2_adjustment_is_unbiased_under_the_working_model():
 @pytest.mark.parametrize("method", ["REML", "DL"])
 def test_cr2_independent_matches_dense(method):
     df = _data()
-    m = MetaRegression(method=method, moderators="x + z", cluster="cl").fit(df, effect="yi",
-                                                                           variance="vi")
-    y = df["yi"].to_numpy()
+    m = MetaRegression(method=method, moderators="x + z", cluster="cl").fit(df, effect="es",
+                                                                           variance="es_var")
+    y = df["es"].to_numpy()
     X = np.column_stack([np.ones(len(df)), df["x"], df["z"]])
-    Phi = np.diag(df["vi"].to_numpy() + m.tau2_)
+    Phi = np.diag(df["es_var"].to_numpy() + m.tau2_)
     b, V, dfs = _dense_cr2(y, X, Phi, df["cl"].to_numpy())
     assert_allclose(m.coef_, b, rtol=1e-10)
     assert_allclose(m.vcov_, V, rtol=1e-8, atol=1e-14)
@@ -116,13 +116,13 @@ def test_cr2_independent_matches_dense(method):
 def test_cr2_multilevel_matches_dense():
     df = _data(seed=5, J=15)
     df["study"] = df["cl"] + "_" + (np.arange(len(df)) % 2).astype(str)  # 2 studies per cluster
-    m = MetaRegression(moderators="x", nested="study", cluster="cl").fit(df, effect="yi",
-                                                                        variance="vi")
+    m = MetaRegression(moderators="x", nested="study", cluster="cl").fit(df, effect="es",
+                                                                        variance="es_var")
     s1, s2 = m.variance_components_.values()
     st = pd.factorize(df["study"])[0]
-    Phi = np.diag(df["vi"].to_numpy() + s2) + s1 * (st[:, None] == st[None, :])
+    Phi = np.diag(df["es_var"].to_numpy() + s2) + s1 * (st[:, None] == st[None, :])
     X = np.column_stack([np.ones(len(df)), df["x"]])
-    b, V, dfs = _dense_cr2(df["yi"].to_numpy(), X, Phi, df["cl"].to_numpy())
+    b, V, dfs = _dense_cr2(df["es"].to_numpy(), X, Phi, df["cl"].to_numpy())
     assert_allclose(m.coef_, b, rtol=1e-8)
     assert_allclose(m.vcov_, V, rtol=1e-7, atol=1e-14)
     assert_allclose(m.coefficients_["df"], dfs, rtol=1e-7)
@@ -132,10 +132,10 @@ def test_cr2_multilevel_matches_dense():
 def test_cr0_cr1_match_statsmodels(kind, correction):
     # statsmodels WLS cluster sandwich; use_correction=True is G/(G-1) (N-1)/(N-p)
     df = _data()
-    m = MetaRegression(moderators="x + z").fit(df, effect="yi", variance="vi")
-    y = df["yi"].to_numpy()
+    m = MetaRegression(moderators="x + z").fit(df, effect="es", variance="es_var")
+    y = df["es"].to_numpy()
     X = np.column_stack([np.ones(len(df)), df["x"], df["z"]])
-    w = 1 / (df["vi"].to_numpy() + m.tau2_)
+    w = 1 / (df["es_var"].to_numpy() + m.tau2_)
     groups = pd.factorize(df["cl"])[0]
     ref = WLS(y, X, weights=w).fit(cov_type="cluster",
                                    cov_kwds={"groups": groups, "use_correction": correction})

@@ -30,10 +30,10 @@ from envlink.metareg.results import qprofile_interval
 def _bcg_design(mods: list[str]):
     df = table()
     X = df[mods].to_numpy(dtype=float) if mods else None
-    return design_from_arrays(df["yi"].to_numpy(), df["vi"].to_numpy(), X, intercept=True)
+    return design_from_arrays(df["es"].to_numpy(), df["es_var"].to_numpy(), X, intercept=True)
 
 
-@pytest.mark.parametrize("mods", [[], ["ablat"], ["ablat", "year"]])
+@pytest.mark.parametrize("mods", [[], ["latitude_abs"], ["latitude_abs", "year"]])
 @pytest.mark.parametrize("level", [0.95, 0.8])
 def test_fast_interval_equals_root_found_interval_on_bcg(mods, level):
     d = _bcg_design(mods)
@@ -86,9 +86,9 @@ def test_uncentred_moderator_matches_statsmodels_wls():
     from statsmodels.regression.linear_model import WLS
 
     df = table()
-    m = MetaRegression(moderators="ablat + year", tau2=0.05).fit(df, effect="yi", variance="vi")
-    Xa = np.column_stack([np.ones(len(df)), df["ablat"], df["year"]]).astype(float)
-    ref = WLS(df["yi"], Xa, weights=1 / (df["vi"] + 0.05)).fit(cov_type="fixed scale")
+    m = MetaRegression(moderators="latitude_abs + year", tau2=0.05).fit(df, effect="es", variance="es_var")
+    Xa = np.column_stack([np.ones(len(df)), df["latitude_abs"], df["year"]]).astype(float)
+    ref = WLS(df["es"], Xa, weights=1 / (df["es_var"] + 0.05)).fit(cov_type="fixed scale")
     assert_allclose(m.coef_, ref.params, rtol=1e-10)
     assert_allclose(m.se_, ref.bse, rtol=1e-10)
 

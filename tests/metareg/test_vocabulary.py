@@ -51,8 +51,8 @@ def bcg_csv(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 def _api(option: str, text: str) -> str | None:
     try:
-        m = MetaRegression(moderators="ablat", **{option: text}).fit(table(), effect="yi",
-                                                                   variance="vi")
+        m = MetaRegression(moderators="latitude_abs", **{option: text}).fit(table(), effect="es",
+                                                                   variance="es_var")
     except InputError:
         return None
     return m.method_ if option == "method" else m.to_dict()["coefficients"]["test"]
@@ -60,7 +60,7 @@ def _api(option: str, text: str) -> str | None:
 
 def _cli(option: str, text: str, csv: Path, out: Path) -> str | None:
     out.unlink(missing_ok=True)
-    code = main(["fit", str(csv), "--effect", "yi", "--variance", "vi", "--moderators", "ablat",
+    code = main(["fit", str(csv), "--effect", "es", "--variance", "es_var", "--moderators", "latitude_abs",
                  f"--{option}", text, "--json", str(out)])
     assert code in (0, 2)
     if code == 2:
@@ -109,7 +109,7 @@ def test_api_cli_and_project_agree(option: str, text: str, canonical: str | None
 def test_refusal_message_has_did_you_mean() -> None:
     with pytest.raises(InputError, match=r"must be one of 'REML', 'ML', 'DL', 'PM', 'HE', 'SJ'; "
                                          r"got 'REMLX'\. Did you mean 'reml'"):
-        MetaRegression(method="REMLX").fit(table(), effect="yi", variance="vi")
+        MetaRegression(method="REMLX").fit(table(), effect="es", variance="es_var")
 
 
 def test_help_lists_every_name_and_alias(capsys: pytest.CaptureFixture[str]) -> None:

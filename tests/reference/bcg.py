@@ -11,9 +11,9 @@ tests/metareg/test_bcg.py only by quantities recomputed from them (log risk rati
 against a direct computation, and DL / REML fits against statsmodels and an
 independent scipy maximisation), never by recalled published outputs.
 
-Columns: tpos / tneg = vaccinated with / without tuberculosis, cpos / cneg = the
-same for the unvaccinated; ablat = absolute latitude of the trial (degrees); year =
-publication year; alloc = treatment allocation (random, alternate, systematic).
+Columns: vacc_tb / vacc_ok = vaccinated with / without tuberculosis, ctrl_tb / ctrl_ok = the
+same for the unvaccinated; latitude_abs = absolute latitude of the trial (degrees); year =
+publication year; allocation = treatment allocation (random, alternate, systematic).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: (trial, tpos, tneg, cpos, cneg, ablat, year, alloc) -- from memory
+#: (trial, vacc_tb, vacc_ok, ctrl_tb, ctrl_ok, latitude_abs, year, allocation) -- from memory
 ROWS = [
     (1, 4, 119, 11, 128, 44, 1948, "random"),
     (2, 6, 300, 29, 274, 55, 1949, "random"),
@@ -40,15 +40,15 @@ ROWS = [
 
 
 def table() -> pd.DataFrame:
-    """The BCG table with the log risk ratio ``yi`` and its variance ``vi``.
+    """The BCG table with the log risk ratio ``es`` and its variance ``es_var``.
 
-    ``yi = log[(tpos / n_t) / (cpos / n_c)]`` and
-    ``vi = 1/tpos - 1/n_t + 1/cpos - 1/n_c`` (Borenstein et al. 2009, ch. 5).
+    ``es = log[(vacc_tb / n_t) / (ctrl_tb / n_c)]`` and
+    ``es_var = 1/vacc_tb - 1/n_t + 1/ctrl_tb - 1/n_c`` (Borenstein et al. 2009, ch. 5).
     """
-    df = pd.DataFrame(ROWS, columns=["trial", "tpos", "tneg", "cpos", "cneg", "ablat", "year",
-                                     "alloc"])
-    nt = df["tpos"] + df["tneg"]
-    nc = df["cpos"] + df["cneg"]
-    df["yi"] = np.log(df["tpos"] / nt) - np.log(df["cpos"] / nc)
-    df["vi"] = 1 / df["tpos"] - 1 / nt + 1 / df["cpos"] - 1 / nc
+    df = pd.DataFrame(ROWS, columns=["trial", "vacc_tb", "vacc_ok", "ctrl_tb", "ctrl_ok", "latitude_abs", "year",
+                                     "allocation"])
+    nt = df["vacc_tb"] + df["vacc_ok"]
+    nc = df["ctrl_tb"] + df["ctrl_ok"]
+    df["es"] = np.log(df["vacc_tb"] / nt) - np.log(df["ctrl_tb"] / nc)
+    df["es_var"] = 1 / df["vacc_tb"] - 1 / nt + 1 / df["ctrl_tb"] - 1 / nc
     return df
