@@ -226,3 +226,54 @@ def test_cli_scan_and_run_impute_dates(run, tmp_path: Path, capsys) -> None:
                  "--no-progress"]) == 0
     fit = json.loads((tmp_path / "o" / "fit.json").read_text())
     assert fit["imputation"]["draws"] == 2
+
+
+def test_imputed_dates_share_one_read_per_grid_and_equal_one_attach_per_draw(run, tmp_path: Path,
+                                                                            monkeypatch) -> None:
+    # Reference: the plain path, one envlink.attach and one fit per draw, pooled here by
+    # Rubin's rules written out (Rubin 1987, eqs. 3.1.2-3.1.5): the draws that share one
+    # cell-series read per grid give the same completed tables, so the same numbers.
+    import warnings
+
+    import numpy as np
+    from numpy.testing import assert_allclose
+
+    import envlink
+    from envlink.errors import EnvlinkWarning
+    from envlink.extract.series import CellSeries
+    from envlink.locate.plausible import draw_periods
+    from envlink.metareg.model import MetaRegression
+    from envlink.project.impute import impute_dates
+
+    table = pd.read_csv(run.paths["csv"])
+    grid = envlink.open_grid(data_path("vell_sst_monthly.nc"), variable="sst")
+    opts = {"stat": "anomaly", "spatial": "nearest-valid:40km", "baseline": "1991-2020"}
+    made: list[CellSeries] = []
+    make = CellSeries.for_grid.__func__  # type: ignore[attr-defined]
+    monkeypatch.setattr(CellSeries, "for_grid",
+                        classmethod(lambda cls, *a, **k: made.append(make(cls, *a, **k)) or made[-1]))
+    cache = str(tmp_path / "cache")
+    got = impute_dates(table, [{"grid": grid, "name": "sst_anom", **opts}], effect="effect",
+                       variance="variance", moderators="sst_anom", nested="study_id", draws=3,
+                       seed=4, period="sampling_period", cache_dir=cache, progress=False)
+    assert len(made) == 1 and made[0].cells_read > 0  # one series for the three draws
+    plausible = draw_periods(table, 3, seed=4, period="sampling_period")
+    base = table.drop(columns=[c for c in table.columns if c.startswith("sst_anom")])
+    with warnings.catch_warnings():  # rows without a value are dropped, as impute_dates does
+        warnings.simplefilter("ignore", EnvlinkWarning)
+        fits = [MetaRegression(moderators="sst_anom", nested="study_id").fit(
+            envlink.attach(plausible.table(base, m), grid, name="sst_anom", progress=False, **opts),
+            effect="effect", variance="variance") for m in range(3)]
+    est = np.array([f.coef_ for f in fits])
+    assert_allclose(got.draws[list(fits[0].terms_)].to_numpy(), est, rtol=1e-12, atol=0)
+    within = np.mean([f.se_ ** 2 for f in fits], axis=0)
+    between = est.var(axis=0, ddof=1)
+    total = within + (1 + 1 / 3) * between
+    assert_allclose(got.pooled.table["estimate"].to_numpy(), est.mean(axis=0), rtol=1e-12)
+    assert_allclose(got.pooled.table["se"].to_numpy(), np.sqrt(total), rtol=1e-12)
+    # a second imputation reads every cell from the store the first one filled
+    made.clear()
+    impute_dates(table, [{"grid": grid, "name": "sst_anom", **opts}], effect="effect",
+                 variance="variance", moderators="sst_anom", nested="study_id", draws=3, seed=4,
+                 period="sampling_period", cache_dir=cache, progress=False)
+    assert len(made) == 1 and made[0].cells_read == 0

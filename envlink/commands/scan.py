@@ -35,10 +35,10 @@ columns of 'envlink sites' (or give its column options to locate first)."""
 
 EPILOG = """\
 examples:
-  envlink scan located.csv --grid sst_daily.nc --effect yi --variance vi \\
+  envlink scan located.csv --grid sst_daily.nc --effect es --variance es_var \\
       --lags 0..90:10 --spans 7..84:7 --unit D --stat mean --stat max --nested study \\
       --permutations 1000 --seed 1 --json scan.json --figure scan.png
-  envlink scan located.csv --grid sst_monthly.nc --effect yi --variance vi \\
+  envlink scan located.csv --grid sst_monthly.nc --effect es --variance es_var \\
       --lags 0..12 --spans 1..6 --unit M --anchor start --anchor end
 
 --json, --windows and --figure never replace TABLE or the grid, and replace an
@@ -100,6 +100,9 @@ def register(subparsers: Any) -> None:
                    help="read the grid without the cell-series store (see 'envlink cache')")
     p.add_argument("--no-progress", action="store_true",
                    help="hide the progress bars of the windows and permutations (and their lines in a log)")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="read the grid's cells on a dask.distributed cluster (e.g. tcp://10.0.0.5:8786), "
+                        "once for every window; the fits and permutations run here (docs/scaling.md)")
     add_locate_arguments(p)
     p.set_defaults(handler=run)
 
@@ -150,7 +153,8 @@ def run(args: argparse.Namespace) -> int:
     table = _table(args)
     grid = _open(args.grid, args.var)
     cache_dir = None if args.no_cache else str(cache_root())
-    result = scan(table, grid, progress=False if args.no_progress else None, cache_dir=cache_dir, effect=args.effect, variance=args.variance, lags=args.lags,
+    result = scan(table, grid, progress=False if args.no_progress else None, cache_dir=cache_dir,
+                  client=args.scheduler, effect=args.effect, variance=args.variance, lags=args.lags,
                   spans=args.spans, unit=args.unit, anchors=args.anchors or ["start"],
                   stats=args.stats or ["mean"], moderators=args.moderators, nested=args.nested,
                   method=args.method, test=args.test, n_permutations=args.permutations,
@@ -192,5 +196,5 @@ PARAM_OPTIONS = {
     "n_permutations": "--permutations", "seed": "--seed", "scheme": "--permute",
     "spatial": "--spatial", "baseline": "--baseline", "mmm": "--mmm",
     "min_coverage": "--min-coverage", "variable": "--var", "force": "--force",
-    "progress": {False: "--no-progress"},
+    "progress": {False: "--no-progress"}, "client": "--scheduler",
 }

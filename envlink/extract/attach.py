@@ -255,12 +255,7 @@ def _pipeline(table: pd.DataFrame, grid: xr.DataArray, covs: list[dict[str, Any]
 def _series_source(grid: xr.DataArray, cache_dir: str | None, progress: bool | None,
                    client: Any = None) -> CellSeries:
     """The grid's cell series: through its store under ``cache_dir`` (none when None)."""
-    store = None
-    if cache_dir is not None:
-        from envlink.extract.store import GridStore
-
-        store = GridStore.for_grid(grid, cache_dir)
-    return CellSeries(grid, store, show=progress, client=client)
+    return CellSeries.for_grid(grid, cache_dir, show=progress, client=client)
 
 
 def _prefetch(cells: CellSeries, plans: list[ExtractionPlan], label: str) -> None:

@@ -164,7 +164,8 @@ def family_windows(table: pd.DataFrame, anchor: str, lag: int, span: int,
 
 
 def extract_family(table: pd.DataFrame, grid: Any, family: WindowFamily, *,
-                   progress: bool | None = None, **attach_options: Any) -> pd.DataFrame:
+                   progress: bool | None = None, client: Any = None,
+                   **attach_options: Any) -> pd.DataFrame:
     """Every candidate column of ``family`` for a located table: one column per window.
 
     Each cell's series is read once for the whole family: every window's call of
@@ -180,6 +181,9 @@ def extract_family(table: pd.DataFrame, grid: Any, family: WindowFamily, *,
         A normalised grid (:func:`envlink.open_grid`).
     family : WindowFamily
     progress : bool, optional
+    client : dask.distributed.Client or str, optional
+        Read the cells on this Dask cluster (a client or a scheduler's address), as
+        ``client=`` of :func:`envlink.extract.attach.attach`.
     **attach_options
         ``spatial``, ``baseline``, ``mmm``, ``time_weights``, ``min_coverage``,
         ``threshold`` and ``cache_dir`` (the series are then read from and kept in
@@ -202,17 +206,22 @@ def extract_family(table: pd.DataFrame, grid: Any, family: WindowFamily, *,
     >>> extract_family(t, g, f).iloc[0].tolist()
     [8.0, 4.0, 8.0, 4.0]
     """
+    from envlink.extract.cluster_read import cluster_client
+
+    cache_dir = attach_options.pop("cache_dir", None)
+    with cluster_client(client) as opened:
+        return _extract(table, grid, family, progress, cache_dir, opened, attach_options)
+
+
+def _extract(table: pd.DataFrame, grid: Any, family: WindowFamily, progress: bool | None,
+             cache_dir: str | None, client: Any, attach_options: dict[str, Any]) -> pd.DataFrame:
+    """:func:`extract_family` with its cluster's client (or None) open."""
     from envlink.core.progress import progress_bar
     from envlink.extract.attach import attach_many
     from envlink.extract.series import CellSeries
 
-    cache_dir = attach_options.pop("cache_dir", None)
-    store = None
-    if cache_dir is not None:
-        from envlink.extract.store import GridStore
-
-        store = GridStore.for_grid(grid, cache_dir)
-    cells = CellSeries(grid, store, show=False)  # one read of each cell for every window
+    # one read of each cell for every window
+    cells = CellSeries.for_grid(grid, cache_dir, show=False, client=client)
     desc = family.describe()
     base = pd.DataFrame({c: table[c] for c in ("site_lat", "site_lon", "locate_status", "site_wkt")
                          if c in table.columns}, index=table.index)

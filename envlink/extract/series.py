@@ -117,6 +117,24 @@ class CellSeries:
 
             prepare_readers(grid)
 
+    @classmethod
+    def for_grid(cls, grid: xr.DataArray, cache_dir: str | None = None, *, show: bool | None = None,
+                 client: object | None = None) -> CellSeries:
+        """The grid's series through its store under ``cache_dir`` (no store when None).
+
+        Examples
+        --------
+        >>> from envlink.testing import make_grid
+        >>> CellSeries.for_grid(make_grid(np.zeros((2, 2, 2)), lat=[0, 1], lon=[0, 1])).store is None
+        True
+        """
+        store = None
+        if cache_dir is not None:
+            from envlink.extract.store import GridStore
+
+            store = GridStore.for_grid(grid, cache_dir)
+        return cls(grid, store, show=show, client=client)
+
     @property
     def any_valid(self) -> np.ndarray:
         """``(ny, nx)`` int8: 1 a cell with data at some step, 0 one without, -1 unknown."""

@@ -10,7 +10,7 @@ and report how much each coefficient's SE grows because of the imprecise dates.
 from __future__ import annotations
 
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -19,7 +19,8 @@ import pandas as pd
 from envlink.core.columns import COVARIATE_SUFFIXES
 from envlink.core.progress import progress_bar
 from envlink.errors import EnvlinkWarning, InputError, ModelError
-from envlink.extract.attach import attach
+from envlink.extract.attach import attach_many
+from envlink.extract.series import CellSeries
 from envlink.locate.plausible import draw_periods
 from envlink.metareg.model import MetaRegression
 from envlink.metareg.pooling import ImputationResult, rubin_pool
@@ -36,11 +37,37 @@ def _without(table: pd.DataFrame, names: Sequence[str]) -> pd.DataFrame:
     return table.drop(columns=drop)
 
 
-def _attach_all(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
+def _attach_all(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]],
+                series: dict[int, CellSeries]) -> pd.DataFrame:
+    """Every covariate over one draw's windows, from its grid's shared cell series."""
     for cov in covariates:
-        opts = {k: cov[k] for k in ATTACH_KEYS if k in cov}
-        table = attach(table, cov["grid"], name=cov["name"], progress=False, **opts)
+        spec = {"name": cov["name"], **{k: cov[k] for k in ATTACH_KEYS if k in cov}}
+        table = attach_many(table, cov["grid"], [spec], progress=False, series=series[id(cov["grid"])])
     return table
+
+
+def _draw_fits(tables: Callable[[int], pd.DataFrame], covariates: Sequence[Mapping[str, Any]],
+               draws: int, fit: Callable[[pd.DataFrame], MetaRegression], progress: bool | None,
+               cache_dir: str | None, client: Any) -> list[MetaRegression]:
+    """The fit of each draw; each grid's cells are read once for every draw (one shared
+    :class:`~envlink.extract.series.CellSeries` per grid, through the store under
+    ``cache_dir``, on ``client``'s cluster when given)."""
+    from envlink.extract.cluster_read import cluster_client
+
+    with cluster_client(client) as opened:
+        series: dict[int, CellSeries] = {}
+        for cov in covariates:
+            if id(cov["grid"]) not in series:
+                series[id(cov["grid"])] = CellSeries.for_grid(cov["grid"], cache_dir, show=False,
+                                                              client=opened)
+        fits = []
+        with progress_bar(draws, "imputed dates", "draw", show=progress) as bar:
+            for m in range(draws):
+                fits.append(fit(_attach_all(tables(m), covariates, series)))
+                bar.update(1)
+        for cells in series.values():
+            cells.flush()  # the series read from the grid, kept in its store (none without one)
+    return fits
 
 
 def impute_dates(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]], *,
@@ -48,8 +75,8 @@ def impute_dates(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]], *
                  moderators: str | None = None, draws: int = 20, seed: int | None = None,
                  effort: str | None = None, period: str | None = None, start: str | None = None,
                  end: str | None = None, locate_options: Mapping[str, Any] | None = None,
-                 level: float = 0.95, progress: bool | None = None,
-                 **model_options: Any) -> ImputationResult:
+                 level: float = 0.95, progress: bool | None = None, cache_dir: str | None = None,
+                 client: Any = None, **model_options: Any) -> ImputationResult:
     """Fit the model over ``draws`` plausible date windows and pool by Rubin's rules.
 
     Parameters
@@ -72,6 +99,11 @@ def impute_dates(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]], *
         ``order``, ``plain_season_south``, ``season_months`` as given to locate.
     level : float
     progress : bool, optional
+    cache_dir : str, optional
+        The cell-series store's folder (see :func:`envlink.attach`): each grid's cells
+        are read once for every draw, and from the store when it holds them.
+    client : dask.distributed.Client or str, optional
+        Read the grids' cells on this Dask cluster, as ``client=`` of :func:`envlink.attach`.
     **model_options
         ``method``, ``test``, ``nested``, ``cluster`` ... of :class:`MetaRegression`.
 
@@ -86,17 +118,16 @@ def impute_dates(table: pd.DataFrame, covariates: Sequence[Mapping[str, Any]], *
     plausible = draw_periods(table, draws, seed=seed, effort=effort, period=period, start=start,
                              end=end, **dict(locate_options or {}))
     base = _without(table, names)
-    fits, ks = [], []
-    with progress_bar(draws, "imputed dates", "draw", show=progress) as bar:
-        for m in range(draws):
-            t = _attach_all(plausible.table(base, m), covariates)
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", EnvlinkWarning)
-                fit = MetaRegression(moderators=moderators, level=level, **model_options).fit(
-                    t, effect=effect, variance=variance)
-            fits.append(fit)
-            ks.append(fit.k_)
-            bar.update(1)
+
+    def fit_one(t: pd.DataFrame) -> MetaRegression:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", EnvlinkWarning)
+            return MetaRegression(moderators=moderators, level=level, **model_options).fit(
+                t, effect=effect, variance=variance)
+
+    fits = _draw_fits(lambda m: plausible.table(base, m), covariates, draws, fit_one, progress,
+                      cache_dir, client)
+    ks = [f.k_ for f in fits]
     terms = fits[0].terms_
     if any(f.terms_ != terms for f in fits):
         raise ModelError("The draws gave models with different terms (a category missing in some "

@@ -32,7 +32,7 @@ def _model_options(project: Any) -> dict[str, Any]:
 
 
 def _scan(project: Any, table: pd.DataFrame, grids: dict[str, Any], effect: str,
-          variance: str, progress: bool | None) -> Any:
+          variance: str, progress: bool | None, reads: dict[str, Any]) -> Any:
     import envlink
     from envlink.metareg.frame import read_model_columns
     from envlink.project.scan import scan
@@ -52,13 +52,13 @@ def _scan(project: Any, table: pd.DataFrame, grids: dict[str, Any], effect: str,
                     unit=s.get("unit", "D").upper(), anchors=s.get("anchors", ["start"]),
                     stats=s.get("stats", ["mean"]), moderators=s.get("moderators"),
                     n_permutations=int(s.get("permutations", 1000)), seed=s.get("seed"),
-                    scheme=s.get("permute"), progress=progress, **opts, **attach)
+                    scheme=s.get("permute"), progress=progress, **reads, **opts, **attach)
     except EnvlinkError as exc:
         raise type(exc)(f"{where(project, 'scan')} [scan]: {exc}") from exc
 
 
 def _imputation(project: Any, table: pd.DataFrame, grids: dict[str, Any], effect: str,
-                variance: str, progress: bool | None) -> Any:
+                variance: str, progress: bool | None, reads: dict[str, Any]) -> Any:
     from envlink.metareg.frame import read_model_columns
     from envlink.project.impute import ATTACH_KEYS, impute_dates
 
@@ -82,7 +82,7 @@ def _imputation(project: Any, table: pd.DataFrame, grids: dict[str, Any], effect
                             start=loc.get("start"), end=loc.get("end"),
                             locate_options={k: loc[k] for k in ("order", "plain_season_south",
                                                                 "season_months") if k in loc},
-                            progress=progress, **_model_options(project),
+                            progress=progress, **reads, **_model_options(project),
                             **({"cluster": model["cluster"]} if "cluster" in model else {}))
     except EnvlinkError as exc:
         raise type(exc)(f"{where(project, 'imputation')} [imputation]: {exc}") from exc
@@ -110,8 +110,14 @@ def _shared(project: Any, table: pd.DataFrame) -> tuple[pd.DataFrame, list[Any]]
 
 
 def run_checks(project: Any, table: pd.DataFrame, fit: Any, grids: dict[str, Any], *,
-               effect: str, variance: str, progress: bool | None) -> tuple[pd.DataFrame, Checks]:
-    """Every check the project asks for, on the fitted model; the table gains shared-cell flags."""
+               effect: str, variance: str, progress: bool | None, cache_dir: str | None = None,
+               client: Any = None) -> tuple[pd.DataFrame, Checks]:
+    """Every check the project asks for, on the fitted model; the table gains shared-cell flags.
+
+    The window scan and the imputed dates read the grids' cells through the cell-series
+    store under ``cache_dir`` (none when None) and on ``client``'s Dask cluster when given.
+    """
+    reads = {"cache_dir": cache_dir, "client": client}
     model = project.section("model")
     checks = Checks()
     n_perm = int(model.get("permutations", 0))
@@ -120,9 +126,9 @@ def run_checks(project: Any, table: pd.DataFrame, fit: Any, grids: dict[str, Any
                                                   scheme=model.get("permute"), progress=progress)
     table, checks.shared = _shared(project, table)
     if project.section("scan"):
-        checks.scan = _scan(project, table, grids, effect, variance, progress)
+        checks.scan = _scan(project, table, grids, effect, variance, progress, reads)
     if project.section("imputation"):
-        checks.imputation = _imputation(project, table, grids, effect, variance, progress)
+        checks.imputation = _imputation(project, table, grids, effect, variance, progress, reads)
     _model_checks(project, table, fit, checks)
     return table, checks
 

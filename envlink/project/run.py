@@ -145,13 +145,14 @@ def run_project(
         steps.done("read")
         table = locate_rows(project, table, progress)
         steps.done("locate")
-        table, grids, attached = attach_covariates(project, table, _cache_folder(project, cache),
-                                                   progress, steps, client)  # fmt: skip
+        folder = _cache_folder(project, cache)
+        table, grids, attached = attach_covariates(project, table, folder, progress, steps, client)
         provenance: dict[str, Any] = {"project": {"title": project.title,
                                                   "file": project.source.name if project.source else None},
                                       "locate": project.section("locate"), "covariates": attached}  # fmt: skip
         table = _effects_step(project, table, provenance, steps)
-        table, model = _model_step(project, table, provenance, progress, steps, grids)
+        table, model = _model_step(project, table, provenance, progress, steps, grids,
+                                   _Reads(None if folder is None else str(folder), client))
         table.attrs = {}
         html = None
         if "report" in targets:  # rendered first, so the files land together at the end
@@ -242,8 +243,17 @@ class _Model:
     checks: Any = None
 
 
+@dataclass
+class _Reads:
+    """How the checks after the fit read grid cells: the store's folder, the cluster's client."""
+
+    cache_dir: str | None = None
+    client: Any = None
+
+
 def _model_step(project: Project, table: pd.DataFrame, provenance: dict[str, Any],
-                progress: bool | None, steps: Steps, grids: dict[str, Any]) -> tuple[pd.DataFrame, _Model]:
+                progress: bool | None, steps: Steps, grids: dict[str, Any],
+                reads: _Reads) -> tuple[pd.DataFrame, _Model]:
     """The [model] step when the project has one: the fit, ``fit_included``, then the checks
     (permutation, [scan], [imputation], [checks]: :mod:`envlink.project.inference`)."""
     model = _Model(*_effect_columns(project))
@@ -255,7 +265,8 @@ def _model_step(project: Project, table: pd.DataFrame, provenance: dict[str, Any
     table = table.assign(fit_included=ok)
     provenance["model"] = dict(settings)
     table, model.checks = run_checks(project, table, model.fit, grids, effect=model.effect,
-                                     variance=model.variance, progress=wants_progress(progress))
+                                     variance=model.variance, progress=wants_progress(progress),
+                                     cache_dir=reads.cache_dir, client=reads.client)
     if model.checks.permutation is not None:
         provenance["model"]["permutation"] = model.checks.permutation.to_dict()
     steps.done("model")

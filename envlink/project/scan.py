@@ -24,14 +24,15 @@ ATTACH_OPTIONS = ("spatial", "baseline", "mmm", "time_weights", "min_coverage", 
 
 
 def candidate_columns(table: pd.DataFrame, grid: Any, family: WindowFamily, *,
-                      progress: bool | None = None, **attach_options: Any) -> pd.DataFrame:
+                      progress: bool | None = None, client: Any = None,
+                      **attach_options: Any) -> pd.DataFrame:
     """The family's candidate columns for every row (one per window × statistic).
 
     The one extraction call of the scan (:func:`envlink.extract.family.extract_family`:
-    each cell's series read once for the whole family; ``cache_dir`` in
-    ``attach_options`` reads and keeps them in the cell-series store).
+    each cell's series read once for the whole family, on ``client``'s Dask cluster when
+    given; ``cache_dir`` in ``attach_options`` reads and keeps them in the cell-series store).
     """
-    return extract_family(table, grid, family, progress=progress, **attach_options)
+    return extract_family(table, grid, family, progress=progress, client=client, **attach_options)
 
 
 def scan(table: pd.DataFrame, grid: Any, *, effect: str = "effect", variance: str = "variance",
@@ -39,7 +40,7 @@ def scan(table: pd.DataFrame, grid: Any, *, effect: str = "effect", variance: st
          stats: Any = ("mean",), moderators: str | None = None, nested: str | None = None,
          method: str = "REML", test: str = "z", n_permutations: int = 1000,
          seed: int | None = None, scheme: str | None = None, level: float = 0.95,
-         progress: bool | None = None, **attach_options: Any) -> ScanResult:
+         progress: bool | None = None, client: Any = None, **attach_options: Any) -> ScanResult:
     """Scan a family of covariate windows as moderators, with a family-wise permutation p.
 
     Each window is the ``span`` units (days ``"D"`` or whole months ``"M"``) ending
@@ -65,6 +66,9 @@ def scan(table: pd.DataFrame, grid: Any, *, effect: str = "effect", variance: st
     n_permutations, seed, scheme
         The family-wise permutation test.
     progress : bool, optional
+    client : dask.distributed.Client or str, optional
+        Read the grid's cells on this Dask cluster (a client or a scheduler's address),
+        as ``client=`` of :func:`envlink.attach`; the fits run here.
     **attach_options
         ``spatial``, ``baseline``, ``mmm``, ``time_weights``, ``min_coverage``,
         ``threshold`` and ``cache_dir`` (the cell-series store's folder) as for
@@ -89,7 +93,8 @@ def scan(table: pd.DataFrame, grid: Any, *, effect: str = "effect", variance: st
     (4, (2, 2))
     """
     family = WindowFamily.make(lags=lags, spans=spans, unit=unit, anchors=anchors, stats=stats)
-    candidates = candidate_columns(table, grid, family, progress=progress, **attach_options)
+    candidates = candidate_columns(table, grid, family, progress=progress, client=client,
+                                   **attach_options)
     return scan_windows(table, candidates, windows=family.describe(), effect=effect,
                         variance=variance, moderators=moderators, nested=nested, method=method,
                         test=test, n_permutations=n_permutations, seed=seed, scheme=scheme,

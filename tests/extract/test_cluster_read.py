@@ -248,3 +248,54 @@ def test_worker_temporary_files_are_left_to_the_age_rule(tmp_path):
     dead_here.write_bytes(b"x")
     assert remove_stale(tmp_path) == 1
     assert other_host.exists() and not dead_here.exists()
+
+
+def _scan_rows(n: int = 48, seed: int = 5) -> pd.DataFrame:
+    rows = _rows(n, seed=seed)
+    rng = np.random.default_rng(seed)
+    return rows.assign(effect=rng.normal(0.2, 0.3, n), variance=rng.uniform(0.02, 0.08, n))
+
+
+def test_scan_and_imputed_dates_on_cluster_equal_one_machine(client, files, tmp_path, monkeypatch):
+    # the window family of a scan and the draws of imputed dates read their cells on the
+    # workers (one shared series per grid) and give the one-machine values bit for bit
+    from envlink.extract.family import WindowFamily, extract_family
+    from envlink.project.impute import impute_dates
+
+    monkeypatch.setattr(GridStore, "tidy", lambda self, written=None: None)  # keep each worker's segments
+    grid = envlink.open_grid(files["nc"], "sst")
+    rows = _scan_rows()
+    family = WindowFamily.make(lags="0..2", spans="1..3", unit="M", stats=["mean", "max"])
+    one = extract_family(rows, grid, family, spatial="nearest-valid:150km")
+    cache = tmp_path / "cache"
+    on = extract_family(rows, grid, family, spatial="nearest-valid:150km", client=client,
+                        cache_dir=str(cache))
+    assert one.notna().to_numpy().sum() > 0
+    _same(one, on)
+    writers = {int(p.name.split("-")[2]) for p in (cache / "cells").glob("*/*.cells")}
+    assert len(writers - {os.getpid()}) == 2  # written by both workers
+    covs = [{"grid": grid, "name": "sst_m", "stat": "mean", "spatial": "nearest-valid:150km"}]
+    vague = rows.assign(period_precision="month", locate_flags="", effort=20.0)  # a 20-day sub-window
+    here = impute_dates(vague, covs, moderators="sst_m", draws=2, seed=1, effort="effort", progress=False)
+    there = impute_dates(vague, covs, moderators="sst_m", draws=2, seed=1, effort="effort", progress=False,
+                         client=client.scheduler.address)
+    assert here.rules["sub-window"] == len(rows)
+    _same(here.draws, there.draws)
+
+
+def test_command_line_scan_scheduler_equals_one_machine(client, files, tmp_path):
+    table = tmp_path / "located.csv"
+    _scan_rows(40, seed=8).to_csv(table, index=False)
+    env = {**os.environ, "PYTHONPATH": str(Path(envlink.__file__).parents[1])}
+    common = ["scan", str(table), "--grid", str(files["nc"]), "--effect", "effect", "--variance",
+              "variance", "--lags", "0..2", "--spans", "1..2", "--unit", "M", "--spatial",
+              "nearest-valid:150km", "--permutations", "49", "--seed", "3", "--no-progress"]
+    outs = {}
+    for name, extra in (("one", ["--no-cache"]), ("on", ["--scheduler", client.scheduler.address])):
+        done = subprocess.run([sys.executable, "-m", "envlink", *common, *extra, "--json",
+                               str(tmp_path / f"{name}.json")], capture_output=True, text=True,
+                              env={**env, "ENVLINK_CACHE": str(tmp_path / name)}, timeout=180)
+        assert done.returncode == 0, done.stderr
+        outs[name] = (tmp_path / f"{name}.json").read_text()
+    assert outs["on"] == outs["one"]
+    assert list((tmp_path / "on" / "cells").glob("*/*.cells"))  # the workers kept the series
