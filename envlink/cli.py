@@ -33,7 +33,8 @@ __all__ = ["main", "build_parser", "param_options", "COMMANDS"]
 
 #: Command names, in the order ``envlink --help`` lists them. Each lives in
 #: ``envlink.commands.<name>`` with ``register(subparsers)`` and ``run(args) -> int``.
-COMMANDS = ("sites", "grid", "attach", "effects", "fit", "scan", "report", "run", "demo", "cache")
+COMMANDS = ("sites", "grid", "attach", "effects", "fit", "scan", "impute", "report", "run", "demo",
+            "cache")
 
 
 def build_parser() -> argparse.ArgumentParser:

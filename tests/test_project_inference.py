@@ -277,3 +277,36 @@ def test_imputed_dates_share_one_read_per_grid_and_equal_one_attach_per_draw(run
                  variance="variance", moderators="sst_anom", nested="study_id", draws=3, seed=4,
                  period="sampling_period", cache_dir=cache, progress=False)
     assert len(made) == 1 and made[0].cells_read == 0
+
+
+def test_cli_impute_equals_the_python_call(run, tmp_path: Path, capsys) -> None:
+    # envlink impute on the run's located table gives the impute_dates result of the same
+    # settings (both seeded), written as JSON; bad input exits 2 before any grid is read
+    import envlink
+    from envlink.project.impute import impute_dates
+
+    located = run.paths["csv"]
+    grid_file = str(data_path("vell_sst_monthly.nc"))
+    out = tmp_path / "imp.json"
+    argv = ["impute", str(located), "--grid", grid_file, "--var", "sst", "--covariate",
+            "sst_anom=anomaly", "--baseline", "1991-2020", "--spatial", "nearest-valid:40km",
+            "--effect", "effect", "--variance", "variance", "--moderators", "sst_anom",
+            "--nested", "study_id", "--period", "sampling_period", "--draws", "3", "--seed", "4",
+            "--no-progress", "--no-cache"]
+    assert main([*argv, "--json", str(out)]) == 0
+    assert "Rubin" in capsys.readouterr().out
+    table = pd.read_csv(located)
+    grid = envlink.open_grid(grid_file, variable="sst")
+    cov = {"grid": grid, "name": "sst_anom", "stat": "anomaly", "baseline": "1991-2020",
+           "spatial": "nearest-valid:40km"}
+    ref = impute_dates(table, [cov], effect="effect", variance="variance", moderators="sst_anom",
+                       nested="study_id", draws=3, seed=4, period="sampling_period", progress=False)
+    assert json.loads(out.read_text()) == json.loads(json.dumps(ref.to_dict()))
+    assert main([*argv, "--json", str(out)]) == 2  # exists: needs --force
+    assert "--force" in capsys.readouterr().err
+    assert main([*argv, "--draws", "1"]) == 2  # the last --draws counts
+    assert "--draws must be 2 or more" in capsys.readouterr().err
+    bad = [a.replace("sst_anom=anomaly", "sst_anom=anomly") for a in argv]
+    assert main([*bad[:3], "missing.nc", *bad[4:]]) == 2  # the statistic, before the grid
+    err = capsys.readouterr().err
+    assert "anomly" in err and "Did you mean 'anomaly'" in err and "missing.nc" not in err

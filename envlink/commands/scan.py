@@ -107,7 +107,9 @@ def register(subparsers: Any) -> None:
     p.set_defaults(handler=run)
 
 
-def _table(args: argparse.Namespace) -> Any:
+def model_table(args: argparse.Namespace) -> Any:
+    """TABLE read, located when it is not yet (the locate options), with the model's columns read
+    (numbers as float64); shared by ``envlink scan`` and ``envlink impute``."""
     from envlink.commands.attach import _LOCATE_COLUMNS, located_numbers
     from envlink.metareg.frame import read_model_columns
     from envlink.tables import read_table_as_written
@@ -150,7 +152,7 @@ def run(args: argparse.Namespace) -> int:
     ESTIMATORS.parse(args.method), TESTS.parse(args.test), SPATIAL_RULES.parse(args.spatial)
     if args.permute:
         PERMUTATION_SCHEMES.parse(args.permute)
-    table = _table(args)
+    table = model_table(args)
     grid = _open(args.grid, args.var)
     cache_dir = None if args.no_cache else str(cache_root())
     result = scan(table, grid, progress=False if args.no_progress else None, cache_dir=cache_dir,
