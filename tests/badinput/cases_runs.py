@@ -92,6 +92,14 @@ def output_paths() -> list[Case]:
     return c
 
 
+#: a located table with effects: one month of 2000 at each of the grid's cells
+IMPUTE_TABLE = csv_bytes(
+    ("id", "site_lat", "site_lon", "period_start", "period_end", "locate_status", "period_precision",
+     "locate_flags", "es", "es_var"),
+    [[str(i), f"{0.5 + i % 3:.1f}", f"{10.5 + i % 2:.1f}", f"2000-{i + 1:02d}-01", f"2000-{i + 1:02d}-28", "ok",
+      "month", "", f"{0.1 * i:.2f}", "0.05"] for i in range(8)])
+
+
 def _signals() -> tuple[tuple[str, int], ...]:
     return tuple((s.name, int(s)) for s in (signal.SIGINT, signal.SIGTERM, getattr(signal, "SIGHUP", None)) if s)
 
@@ -113,6 +121,10 @@ def interrupts() -> list[Case]:
                     "o.csv", ("o.csv",)),
         "report": (("report", "t.csv", "--effect", "es", "--variance", "es_var", "-o", "r.html", "--force"),
                    {"t.csv": FIT_TABLE, "r.html": PREVIOUS}, "r.html", ("r.html",)),
+        "impute": (("impute", "t.csv", "--grid", "g.nc", "--covariate", "sst=mean", "--effect", "es",
+                    "--variance", "es_var", "--moderators", "sst", "--draws", "2", "--seed", "1",
+                    "--no-cache", "--no-progress", "--json", "o.json", "--force"),
+                   {"t.csv": IMPUTE_TABLE, "g.nc": grid_bytes(), "o.json": PREVIOUS}, "o.json", ("o.json",)),
         "demo": (("demo", "--out", "d", "--force", "--no-progress"),
                  {"d/enriched.csv": PREVIOUS, "d/report.html": PREVIOUS}, ".cells",
                  ("d/enriched.csv", "d/report.html")),
