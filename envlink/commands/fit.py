@@ -13,6 +13,7 @@ from envlink.commands.options import command_line_text
 from envlink.commands.outputs import (
     FIGURE_PARAM_OPTIONS,
     add_figure_options,
+    check_figures_folder,
     choice,
     covariate_names,
     egger_of,
@@ -129,10 +130,12 @@ def register(subparsers: Any) -> None:
                         "bubble, forest, funnel and residual plots)")
     p.add_argument("--figures", metavar="DIR", default=None,
                    help="also write the model figures as PNG files into DIR (bubble.png, "
-                        "forest.png, funnel.png, residuals.png; created if missing)")
+                        "forest.png, funnel.png, residuals.png; created if missing; figures "
+                        "already there are replaced only with --force)")
     add_figure_options(p)
     p.add_argument("--force", action="store_true",
-                   help="replace the --json, --influence and --report files if they exist (never TABLE)")
+                   help="replace the --json, --influence and --report files and the --figures PNGs if "
+                        "they exist (never TABLE)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="reduce each iteration's sums on a dask.distributed cluster (e.g. "
                         "tcp://10.0.0.5:8786); TABLE may then also be a folder or glob of Parquet "
@@ -279,6 +282,8 @@ def _check_outputs(args: argparse.Namespace) -> dict[str, Any]:
         if getattr(args, key):
             out[key] = check_output_path(getattr(args, key), force=args.force, suffixes=suffixes,
                                          inputs=inputs)
+    if args.figures is not None:
+        check_figures_folder(args.figures, args.force)
     return out
 
 

@@ -22,7 +22,7 @@ if TYPE_CHECKING:
 
     from envlink.core.registry import Registry
 
-__all__ = ["choice", "forms", "add_figure_options", "figure_options", "covariate_names", "egger_of",
+__all__ = ["check_figures_folder", "choice", "forms", "add_figure_options", "figure_options", "covariate_names", "egger_of",
            "write_model_outputs", "FIGURE_PARAM_OPTIONS"]
 
 
@@ -84,6 +84,29 @@ def egger_of(y: Any, v: Any) -> Any:
             return egger_test(y, v)
     except EnvlinkError:
         return None
+
+
+def check_figures_folder(folder: str, force: bool) -> None:
+    """``--figures DIR``, checked before any work: a folder (or a new path), whose figure
+    files are replaced only with ``--force``.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> check_figures_folder(tempfile.mkdtemp(), force=False)
+    """
+    from pathlib import Path
+
+    from envlink.report.figures import FIGURE_FILES
+
+    path = Path(folder)
+    if path.exists() and not path.is_dir():
+        raise InputError(f"--figures {folder!r} is a file; give a folder for the PNG figures "
+                         "(it is created when missing).")
+    there = [name for name in FIGURE_FILES if (path / name).exists()] if path.is_dir() else []
+    if there and not force:
+        raise InputError(f"--figures folder {folder!r} already holds {', '.join(there)}; add --force to "
+                         "replace the figures, or give another folder.")
 
 
 def write_model_outputs(model: Any, table: pd.DataFrame, *, effect: str, variance: str,

@@ -13,6 +13,7 @@ from envlink.commands.fit import add_model_options, fit_table
 from envlink.commands.options import command_line_text
 from envlink.commands.outputs import (
     add_figure_options,
+    check_figures_folder,
     covariate_names,
     egger_of,
     figure_options,
@@ -62,14 +63,15 @@ def register(subparsers: Any) -> None:
     p.add_argument("source", metavar="SOURCE",
                    help="a project run's output folder, or a table (.csv/.tsv/.txt, .parquet, .xlsx)")
     p.add_argument("-o", "--output", metavar="HTML", required=True, help="the report (.html)")
-    p.add_argument("--force", action="store_true", help="overwrite HTML if it exists")
+    p.add_argument("--force", action="store_true", help="overwrite HTML and the --figures PNGs if they exist")
     p.add_argument("--no-progress", action="store_true", help="accepted for every command; this one draws none")
     p.add_argument("--title", metavar="TEXT", default=None, help="the report's title")
     p.add_argument("--covariates", metavar="COLS", default=None,
                    help="comma-separated covariate columns to describe (default: those a project "
                         "run recorded, or every column C with C_flags and C_coverage beside it)")
     p.add_argument("--figures", metavar="DIR", default=None,
-                   help="also write the model figures as PNG files into DIR")
+                   help="also write the model figures as PNG files into DIR (created if missing; "
+                        "figures already there are replaced only with --force)")
     model = p.add_argument_group("the model (as for envlink fit)")
     add_model_options(model, project_defaults=True)
     add_figure_options(model)
@@ -143,6 +145,8 @@ def run(args: argparse.Namespace) -> int:
 
     out = check_output_path(args.output, force=args.force, suffixes=(".html",),
                             inputs={args.source: "SOURCE"})
+    if args.figures is not None:
+        check_figures_folder(args.figures, args.force)
     source = Path(args.source)
     if source.is_dir():
         table, extras = _from_folder(source, args)

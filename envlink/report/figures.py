@@ -280,6 +280,10 @@ def model_figures(table: pd.DataFrame, fit: Any, *, effect: str = "effect",
     ]
 
 
+#: the files :func:`write_figures` may write into its folder
+FIGURE_FILES = ("bubble.png", "forest.png", "funnel.png", "residuals.png")
+
+
 def write_figures(folder: str | Path, table: pd.DataFrame, fit: Any, **options: Any
                   ) -> list[ModelFigure]:
     """Write the model figures as PNG files (``bubble.png``, ``forest.png``...) into ``folder``.

@@ -128,6 +128,22 @@ def test_plain_table_to_figures_from_the_command_line(tmp_path, capsys):
     section = re.compile(r"<h2>Meta-regression</h2>(.*?)<h2>", re.DOTALL)
     assert section.search(page).group(1) == section.search(again.read_text()).group(1)
     capsys.readouterr()
+    # --figures follows the output rule of every command (common practice): figures already
+    # in the folder are replaced only with --force, and a file is not a folder (exit 2)
+    before = {p.name: p.read_bytes() for p in figs.glob("*.png")}
+    fit = ["fit", str(effects), "--effect", "effect", "--variance", "variance", "--moderators",
+           "method + depth"]
+    for cmd in ([*fit, "--figures", str(figs)],
+                ["report", str(effects), "--effect", "effect", "--variance", "variance", "-o",
+                 str(tmp_path / "r2.html"), "--figures", str(figs)]):
+        assert main(cmd) == 2
+        err = capsys.readouterr().err
+        assert "already holds bubble.png, forest.png" in err and "--force" in err
+        assert {p.name: p.read_bytes() for p in figs.glob("*.png")} == before
+    assert main([*fit, "--figures", str(effects)]) == 2
+    assert "is a file; give a folder" in capsys.readouterr().err
+    assert main([*fit, "--figures", str(figs), "--force"]) == 0
+    capsys.readouterr()
 
 
 def test_report_refuses_what_it_cannot_use(tmp_path, capsys):
