@@ -23,6 +23,7 @@ __all__ = [
     "FieldError",
     "GridError",
     "ModelError",
+    "ModelOptionError",
     "NotFittedError",
     "EnvlinkWarning",
     "GridWarning",
@@ -118,6 +119,20 @@ class InvalidValueError(InputError, ModelError):
     Examples
     --------
     >>> issubclass(InvalidValueError, ValueError) and issubclass(InvalidValueError, ArithmeticError)
+    True
+    """
+
+
+class ModelOptionError(InputError, ModelError):
+    """An option the model cannot take as asked: bad usage (the command line exits 2).
+
+    A permutation scheme that needs nested groups on a model without them, or a
+    permutation test of a model without moderators. It is also a :class:`ModelError`,
+    so callers that caught those before keep catching it.
+
+    Examples
+    --------
+    >>> issubclass(ModelOptionError, InputError) and issubclass(ModelOptionError, ModelError)
     True
     """
 

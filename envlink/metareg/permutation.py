@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from envlink.errors import MetaRegressionWarning, ModelError
+from envlink.errors import MetaRegressionWarning, ModelError, ModelOptionError
 from envlink.metareg.formula import INTERCEPT, moderator_positions
 from envlink.metareg.shuffles import PERMUTATION_SCHEMES, Shuffler, default_scheme
 from envlink.metareg.stacked import STACKED_METHODS, fit_stacked, scaled_vcov
@@ -283,11 +283,11 @@ def permutation_test_model(model: Any, n_permutations: int, seed: int | None, *,
     from envlink.core.progress import progress_bar
 
     if not isinstance(n_permutations, int | np.integer) or n_permutations < 1:
-        raise ModelError(f"n_permutations must be a whole number of at least 1; got "
+        raise ModelOptionError(f"n_permutations must be a whole number of at least 1; got "
                          f"{n_permutations!r}.")
     fams = model_families(model.terms_, model.design_.spec)
     if not fams[0].columns:
-        raise ModelError("A permutation test needs at least one moderator besides the intercept.")
+        raise ModelOptionError("A permutation test needs at least one moderator besides the intercept.")
     name = _resolve_scheme(model, scheme)
     groups = model.design_.groups.get("nested")
     shuffler = Shuffler(model.k_, name, groups=groups, seed=seed)

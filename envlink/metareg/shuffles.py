@@ -28,7 +28,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from envlink.core.registry import Entry, Registry
-from envlink.errors import ModelError
+from envlink.errors import ModelError, ModelOptionError
 
 if TYPE_CHECKING:
     import numpy as np
@@ -97,7 +97,7 @@ class Shuffler:
         self.rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
         if entry.info["needs_groups"]:
             if groups is None:
-                raise ModelError(f"The permutation scheme {entry.name!r} rearranges rows within or "
+                raise ModelOptionError(f"The permutation scheme {entry.name!r} rearranges rows within or "
                                  "between nested= groups; fit the model with nested=COLUMN, or use "
                                  "scheme='rows'.")
             codes = pd.factorize(np.asarray(groups), sort=False)[0]

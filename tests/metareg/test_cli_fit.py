@@ -358,3 +358,18 @@ def test_fit_influence_path_checked_first(bcg_csv, tmp_path, capsys):
     err = capsys.readouterr()
     assert "it is a folder" in err.err and str(tmp_path) in err.err
     assert err.out == ""  # refused before any fitting
+
+
+def test_permutation_options_a_model_cannot_take_are_bad_usage(bcg_csv, capsys) -> None:
+    # exit codes (envlink/cli.py): a permutation test of a model without moderators, and a
+    # scheme that needs nested groups on a model without them, are usage errors (2), not
+    # failed runs (1); in Python they stay ModelErrors too
+    from envlink.errors import ModelError, ModelOptionError
+
+    assert main(["fit", str(bcg_csv), "--effect", "es", "--variance", "es_var",
+                 "--permutations", "50"]) == 2
+    assert "error: A permutation test needs at least one moderator" in capsys.readouterr().err
+    assert main(["fit", str(bcg_csv), "--effect", "es", "--variance", "es_var", "--moderators",
+                 "latitude_abs", "--permutations", "50", "--permute", "within"]) == 2
+    assert "rearranges rows within" in capsys.readouterr().err
+    assert issubclass(ModelOptionError, ModelError)
