@@ -235,8 +235,9 @@ def covariate_specs(args: argparse.Namespace) -> list[dict[str, Any]]:
         single = [o for o, v in (("--name", args.name), ("--stat", args.stat), ("--window", args.window))
                   if v is not None]
         if single:
-            raise InputError(f"Give either --covariate NAME=STAT[@WINDOW] (repeated) or {single[0]} with --name, "
-                             f"not both; each --covariate is {SPEC_FORM}.")
+            raise InputError(f"Give either --covariate NAME=STAT[@WINDOW] (repeated) or --name (with --stat "
+                             f"and --window), not both ({single[0]} was given too); each --covariate is "
+                             f"{SPEC_FORM}.")
         for text in args.covariate:
             name, eq, rest = text.partition("=")
             if not eq or not name.strip() or not rest.partition("@")[0].strip():

@@ -62,6 +62,31 @@ def parse_covariate(spec: str | Mapping[str, Any], defaults: Mapping[str, Any],
     raise param_error("covariates", caller, f"{SPEC_FORM}, or a mapping with a 'name'", spec)
 
 
+def _reads(cov: Mapping[str, Any], key: str) -> bool:
+    """Whether the covariate's statistic reads ``mmm`` / ``threshold`` (True when unknown:
+    the statistic's own check names a bad one)."""
+    from envlink.extract.statistics import STATISTICS
+
+    try:
+        obj = STATISTICS.parse(str(cov.get("stat"))).entry.obj
+    except InputError:
+        return True
+    return obj is None or bool(obj.takes_mmm if key == "mmm" else obj.takes_threshold)
+
+
+def _only_where_read(covs: list[dict[str, Any]], specs: Sequence[Any], defaults: Mapping[str, Any],
+                     key: str) -> None:
+    """A call's ``mmm=`` / ``threshold=`` goes to the covariates whose statistic reads it
+    (``dhw-max`` beside ``max``); given to none that reads it, it stays, to be refused."""
+    if defaults.get(key) is None:
+        return
+    inherited = [i for i, s in enumerate(specs) if not (isinstance(s, Mapping) and key in s)]
+    if any(_reads(covs[i], key) for i in range(len(covs))):
+        for i in inherited:
+            if not _reads(covs[i], key):
+                covs[i][key] = None
+
+
 def parse_covariates(specs: Sequence[str | Mapping[str, Any]] | str | Mapping[str, Any],
                      defaults: Mapping[str, Any], caller: str = "attach") -> list[dict[str, Any]]:
     """Every covariate of a call (:func:`parse_covariate`), with names checked against each
@@ -75,12 +100,16 @@ def parse_covariates(specs: Sequence[str | Mapping[str, Any]] | str | Mapping[st
     Traceback (most recent call last):
     ...
     envlink.errors.InputError: Two covariates would both write the column 'a'; give each covariate its own name.
+    >>> [c["mmm"] for c in parse_covariates(["h=dhw-max", "m=max"], {"mmm": 28.5})]
+    [28.5, None]
     """
     if isinstance(specs, str | Mapping):
         specs = [specs]
     if not isinstance(specs, Sequence) or not specs:
         raise param_error("covariates", caller, f"a non-empty list of {SPEC_FORM} or mappings", specs)
     out = [parse_covariate(s, defaults, caller) for s in specs]
+    for key in ("mmm", "threshold"):  # the call's value, for the covariates whose statistic reads it
+        _only_where_read(out, specs, defaults, key)
     seen: dict[str, str] = {}
     for cov in out:
         name = cov["name"]

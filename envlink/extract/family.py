@@ -74,8 +74,8 @@ def read_steps(value: Any, name: str, *, low: int) -> tuple[int, ...]:
     else:
         out = []
     if not out or min(out) < low:
-        raise param_error(name, CALLER, f"whole numbers >= {low}: 'A..B', 'A..B:STEP', "
-                          "'1,2,6' or a list", value)
+        raise param_error(name, CALLER, f"whole numbers >= {low}: 'A..B' with A <= B, 'A..B:STEP' "
+                          "with STEP >= 1, '1,2,6' or a list", value)
     return tuple(dict.fromkeys(out))
 
 

@@ -81,6 +81,26 @@ def test_attach_dhw_with_mmm_value(files):
     assert_allclose(pd.read_csv(out)["dhw"][0], 24.0, rtol=1e-12)
 
 
+def test_attach_dhw_beside_other_covariates_takes_mmm(files, capsys):
+    # --mmm applies to the covariates whose statistic reads it (dhw-max), not to max beside it;
+    # each value equals its own single-covariate call (same data, Liu et al. 2014 rule)
+    pd.DataFrame({"site_lat": [0.5], "site_lon": [10.5], "period_start": ["2000-04-01"],
+                  "period_end": ["2000-04-29"]}).to_csv(files / "one.csv", index=False)
+    both, dhw, mx = (files / f"{n}.csv" for n in ("both", "dhw", "mx"))
+    base = ["attach", str(files / "one.csv"), "--grid", str(files / "daily.nc"), "--no-cache"]
+    assert main([*base, "--covariate", "dhw=dhw-max", "--covariate", "mx=max", "--mmm", "28.0",
+                 "-o", str(both)]) == 0
+    assert main([*base, "--name", "dhw", "--stat", "dhw-max", "--mmm", "28.0", "-o", str(dhw)]) == 0
+    assert main([*base, "--name", "mx", "--stat", "max", "-o", str(mx)]) == 0
+    got = pd.read_csv(both)
+    assert_allclose(got["dhw"][0], 24.0, rtol=1e-12)
+    assert got["dhw"][0] == pd.read_csv(dhw)["dhw"][0] and got["mx"][0] == pd.read_csv(mx)["mx"][0]
+    # given with no statistic that reads it, --mmm is still refused
+    assert main([*base, "--covariate", "mx=max", "--covariate", "mn=min", "--mmm", "28.0",
+                 "-o", str(files / "no.csv")]) == 2
+    assert "dhw-max" in capsys.readouterr().err
+
+
 @pytest.mark.parametrize(
     "extra, message",
     [
@@ -241,3 +261,16 @@ def test_attach_grid_that_cannot_be_opened_exits_2_like_grid(files, capsys):
     rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "daily.nc"), "--name", "dhw", "--stat", "dhw-max",
                "--mmm", str(files / "notnc.nc"), "-o", str(files / "o.csv")])
     assert rc == 2 and "notnc.nc" in capsys.readouterr().err
+
+
+def test_clash_and_range_messages_name_the_options(files, capsys):
+    # messages say what to write (common practice): --name with --covariate, and a lag range A > B
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
+               "--covariate", "x=mean", "-o", str(files / "o.csv")])
+    err = capsys.readouterr().err
+    assert rc == 2 and "or --name (with --stat and --window), not both (--name was given too)" in err
+    from envlink.errors import InputError
+    from envlink.extract.family import read_steps
+
+    with pytest.raises(InputError, match=r"'A\.\.B' with A <= B"):
+        read_steps("3..0", "lags", low=0)
