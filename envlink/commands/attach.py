@@ -10,7 +10,12 @@ from typing import Any
 import numpy as np
 
 from envlink.commands.grid import add_grid_arguments, grid_options
-from envlink.commands.sites import add_locate_arguments, input_files, locate_kwargs
+from envlink.commands.sites import (
+    add_locate_arguments,
+    input_files,
+    locate_kwargs,
+    note_unused_locate_options,
+)
 from envlink.errors import InputError
 from envlink.extract.rules import SPATIAL_RULES
 from envlink.extract.statistics import STATISTICS
@@ -307,6 +312,8 @@ def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, 
         from envlink.locate.sites import locate
 
         table = locate(table, progress=progress, **locate_kwargs(args))
+    else:
+        note_unused_locate_options(args, "attach")
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
     grid = _open(args.grid, args.var, **grid_options(args))
     result = attach_many(

@@ -124,6 +124,12 @@ def model_table(args: argparse.Namespace) -> Any:
                              "period_start, period_end); run 'envlink sites' first, or give "
                              "its column options to locate here.")
         table = locate(table, progress=False if args.no_progress else None, **locate_kwargs(args))
+    else:
+        from envlink.commands.sites import note_unused_locate_options
+
+        # impute reads the date options again, to draw the readings of ambiguous dates
+        keep = ("period", "start", "end", "order", "plain_season_south", "season_months")
+        note_unused_locate_options(args, args.command, keep if args.command == "impute" else ())
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
     return read_model_columns(table, effect=args.effect, variance=args.variance,
                               moderators=args.moderators, nested=args.nested,

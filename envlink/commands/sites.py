@@ -100,6 +100,28 @@ def add_locate_arguments(p: argparse.ArgumentParser) -> None:
                    help="months of named seasons, as JSON or a JSON file, e.g. '{\"wet\": [11,12,1,2,3,4]}'")
 
 
+def note_unused_locate_options(args: argparse.Namespace, command: str, keep: tuple[str, ...] = ()) -> None:
+    """On stderr, the locate options given for a table that is located already (they are not used).
+
+    ``keep``: options the command uses even then (``envlink impute`` reads ``--period``
+    to draw the readings of ambiguous dates).
+    """
+    import sys
+
+    defaults = {"fuzzy_threshold": 85.0, "fuzzy_margin": 5.0, "plain_season_south": "ambiguous"}
+    given = []
+    for param, option in LOCATE_OPTIONS.items():
+        value = getattr(args, param, None)
+        if value is None or value == defaults.get(param) or param in keep:
+            continue
+        given.append(str(option[value] if isinstance(option, dict) else option))
+    if given:
+        print(f"envlink {command}: note: TABLE has the located columns already (site_lat, site_lon, "
+              f"period_start, period_end), so {', '.join(given)} {'was' if len(given) == 1 else 'were'} "
+              "not used; to read the places or dates again, run 'envlink sites' on the original "
+              "table.", file=sys.stderr)
+
+
 def parse_season_months(value: str | None) -> dict[str, list[int]] | None:
     """Read ``--season-months``: a JSON object (inline or in a file) of season -> months 1-12.
 

@@ -274,3 +274,15 @@ def test_clash_and_range_messages_name_the_options(files, capsys):
 
     with pytest.raises(InputError, match=r"'A\.\.B' with A <= B"):
         read_steps("3..0", "lags", low=0)
+
+
+def test_locate_options_on_a_located_table_are_said_to_be_unused(files, capsys):
+    # a located table is not located again: options that would read it are named as unused
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
+               "--dayfirst", "--lat", "x", "--lon", "y", "-o", str(files / "o.csv")])
+    err = capsys.readouterr().err
+    assert rc == 0 and "note: TABLE has the located columns already" in err
+    assert "--lat, --lon, --dayfirst were not used" in err
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
+               "-o", str(files / "o2.csv")])
+    assert rc == 0 and "not used" not in capsys.readouterr().err
