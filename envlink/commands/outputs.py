@@ -10,6 +10,7 @@ options accept come from their registries (:data:`~envlink.report.vocabulary.FOR
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 from typing import TYPE_CHECKING, Any
 
@@ -26,14 +27,19 @@ __all__ = ["check_figures_folder", "choice", "forms", "add_figure_options", "fig
            "write_model_outputs", "FIGURE_PARAM_OPTIONS"]
 
 
+#: the Python words of a parameter message ("The 'method' parameter of MetaRegression "), left
+#: out on the command line, where argparse names the option instead
+_PYTHON_PARAM = re.compile(r"^The '[^']+' parameter of [\w.]+ (?=must be )")
+
+
 def choice(registry: Registry[Any]) -> Any:
     """An argparse type reading a name of ``registry`` (its spelling policy) as its canonical label."""
 
     def read(text: str) -> str:
         try:
             return registry.parse(text).label()
-        except InputError as exc:
-            raise argparse.ArgumentTypeError(str(exc)) from None
+        except InputError as exc:  # argparse names the option: "argument --method: must be ..."
+            raise argparse.ArgumentTypeError(_PYTHON_PARAM.sub("", str(exc), count=1)) from None
 
     read.__name__ = registry.vocabulary  # argparse names the type in its messages
     return read

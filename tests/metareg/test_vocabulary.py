@@ -103,7 +103,7 @@ def test_api_cli_and_project_agree(option: str, text: str, canonical: str | None
     assert _project(option, text, tmp_path) is (canonical is not None)
     err = capsys.readouterr().err
     if canonical is None:
-        assert f"The {option!r} parameter of MetaRegression must be" in err
+        assert f"argument --{option}: must be " in err and "MetaRegression" not in err
 
 
 def test_refusal_message_has_did_you_mean() -> None:
