@@ -108,3 +108,22 @@ def test_tables_left_to_pandas_are_written_by_pandas(tmp_path) -> None:
     one = pd.DataFrame({"a": ["", "x"]})  # one column: the csv module quotes a lone empty field
     write_csv(one, tmp_path / "o.csv", lineterminator="\n")
     assert (tmp_path / "o.csv").read_text() == 'a\n""\nx\n'
+
+
+def test_a_decimal_comma_beside_decimal_points_is_explained() -> None:
+    # a column mixing decimal marks is refused (common practice: one mark per column), and
+    # the message says why the comma cell was not read
+    import pandas as pd
+    import pytest
+
+    from envlink.errors import InputError
+    from envlink.tables.cells import number_columns
+
+    t = pd.DataFrame({"es": ["1.112", "0,45", "0.3"]})
+    with pytest.raises(InputError, match=r"row 2 '0,45' is not a number \(other cells of the column "
+                                         r"write decimals with a point"):
+        number_columns(t, ["es"], numbers=["es"])
+    t = pd.DataFrame({"es": ["12", "approx. 5"]})
+    with pytest.raises(InputError) as info:
+        number_columns(t, ["es"], numbers=["es"])
+    assert "decimal mark" not in str(info.value)

@@ -189,10 +189,25 @@ def number_columns(
             extra = f"; {hint.replace('{col}', str(col))}" if hint and col not in must else ""
             raise InputError(
                 f"{where + ': ' if where else ''}the column {col!r} {what}, but {shown}{more} "
-                f"{verb} not a number. Write a number or leave the cell blank{extra}."
+                f"{verb} not a number{_mixed_marks(table[col], rows)}. Write a number or leave the "
+                f"cell blank{extra}."
             )
         out[col] = values
     return out
+
+
+_COMMA_DECIMAL = re.compile(r"^[-+\u2212]?\d+,\d+$")
+_POINT_DECIMAL = re.compile(r"^[-+\u2212]?\d*\.\d+$")
+
+
+def _mixed_marks(values: pd.Series, bad: NDArray[np.intp]) -> str:
+    """Why a decimal comma was not read: other cells of the column use a decimal point."""
+    if not any(_COMMA_DECIMAL.match(cell_text(values.iloc[i]).strip()) for i in bad[:5]):
+        return ""
+    if not any(_POINT_DECIMAL.match(cell_text(v).strip()) for v in values.tolist()):
+        return ""
+    return (" (other cells of the column write decimals with a point, so a comma there is "
+            "not read as a decimal mark: write one mark throughout)")
 
 
 def label_text(values: pd.Series) -> pd.Series:
