@@ -15,13 +15,13 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from grids._writers import simple_grid
 from numpy.testing import assert_allclose
 
 from envlink import open_grid
 from envlink.cli import main
 from envlink.errors import GridWarning
 from envlink.extract.attach import attach
-from grids._writers import simple_grid
 
 from ._grids import table
 
