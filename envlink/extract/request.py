@@ -29,7 +29,7 @@ from envlink.extract.plan import ExtractionPlan
 from envlink.extract.rules import SPATIAL_RULES, SpatialRule
 from envlink.extract.spatial import GridGeometry
 from envlink.extract.statistics import STATISTICS, Statistic, parse_statistic
-from envlink.extract.stats import Steps, row_spans
+from envlink.extract.stats import Steps, row_spans, within_span
 from envlink.extract.windows import (
     TIME_WEIGHTS,
     WINDOWS,
@@ -270,8 +270,12 @@ def plan_rows(rows: TableRows, req: Request, times: Times) -> tuple[ExtractionPl
     else:
         ws, we = np.where(dates_ok, ws_all, b0), np.where(dates_ok, we_all, b1)
     spans = row_spans(times.steps, ws, we)
-    flags.add(active & ~spans.has, "outside_grid_time")
-    active &= spans.has
+    # Only a window wholly outside the grid's span is outside_grid_time; one inside the
+    # span that falls wholly in a gap (a missing day or file) stays active and gets
+    # coverage 0 and no_data_in_window, like any other window without data.
+    outside = ~spans.has & ~within_span(times.steps, ws, we)
+    flags.add(active & outside, "outside_grid_time")
+    active &= ~outside
     plan = ExtractionPlan(
         stat=req.stat, window=req.window, spatial=req.spatial, time_weights=req.time_weights,
         min_coverage=req.min_coverage, mmm=req.mmm, geom=times.geom, steps=times.steps,

@@ -38,6 +38,7 @@ __all__ = [
     "Steps",
     "Spans",
     "row_spans",
+    "within_span",
     "WindowData",
     "window_data",
     "window_stat",
@@ -115,6 +116,21 @@ def row_spans(steps: Steps, ws: np.ndarray, we: np.ndarray) -> Spans:
     ov0 = np.minimum(steps.t1[a], we) - np.maximum(steps.t0[a], ws)
     ov1 = np.minimum(steps.t1[b], we) - np.maximum(steps.t0[b], ws)
     return Spans(a, np.where(has, b, a), np.where(has, ov0, 0.0), np.where(has, ov1, 0.0), we - ws, has)
+
+
+def within_span(steps: Steps, ws: np.ndarray, we: np.ndarray) -> np.ndarray:
+    """Whether each window ``[ws, we)`` overlaps the grid's time span (first step's start
+    to last step's end), gaps between steps included.
+
+    Examples
+    --------
+    >>> st = Steps(np.array([0., 2.]), np.array([1., 3.]), *(np.ones(2, int),) * 3)
+    >>> within_span(st, np.array([1.0, 3.0, -1.0]), np.array([2.0, 4.0, 0.0])).tolist()
+    [True, False, False]
+    """
+    if steps.t0.size == 0:
+        return np.zeros(np.shape(ws), dtype=bool)
+    return (np.asarray(we) > np.min(steps.t0)) & (np.asarray(ws) < np.max(steps.t1))
 
 
 def _short_windows(q: np.ndarray, sp: Spans) -> bool:

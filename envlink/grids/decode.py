@@ -315,6 +315,11 @@ def _time_coords(values: xr.DataArray, ds: xr.Dataset, layout: _Layout, opts: De
                  label: str, notes: list[str]) -> tuple[xr.DataArray, str]:
     """Step 4: decoded, sorted time stamps and their cells; returns the calendar too."""
     name = layout.axes["time"]["name"]
+    if ds[name].size == 0:
+        raise GridError(
+            f"The time axis {name!r} of {label} has no steps (length 0), so the grid holds no "
+            "data. Check the file: it may have been written before any step was added."
+        )
     stamps, starts, ends, cal = _decode_time_axis(ds, name, opts, notes)
     sort = np.argsort(np.asarray([d for d in stamps], dtype=object), kind="stable")
     if not np.array_equal(sort, np.arange(sort.size)):

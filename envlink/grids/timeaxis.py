@@ -204,7 +204,9 @@ def infer_cells(stamps: np.ndarray, *, variable: str = "time") -> tuple[np.ndarr
     >>> e[-1].isoformat()[:10], rule
     ('2000-03-01', 'time cells inferred: monthly step, each stamp taken as its calendar month')
     """
-    days = _as_days(stamps) if len(stamps) else np.array([])
+    if len(stamps) == 0:
+        raise GridError(f"The time axis {variable!r} has no steps (length 0); no cells can be inferred.")
+    days = _as_days(stamps)
     kind, med = step_kind(stamps, days)
     if kind in ("daily", "single"):
         first = stamps[0]

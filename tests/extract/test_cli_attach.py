@@ -286,3 +286,18 @@ def test_locate_options_on_a_located_table_are_said_to_be_unused(files, capsys):
     rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "g.nc"), "--name", "v",
                "-o", str(files / "o2.csv")])
     assert rc == 0 and "not used" not in capsys.readouterr().err
+
+
+def test_attach_grid_with_empty_time_axis_exits_2_naming_it(files, capsys):
+    # Contract (exit codes in `envlink attach --help`): a grid whose time axis has length 0 is bad input,
+    # exit 2 with the file named, as `envlink grid` says; never an IndexError.
+    ds = xr.Dataset({"sst": (("time", "lat", "lon"), np.zeros((0, 3, 2)), {"units": "degC"})},
+                    coords={"time": ("time", np.zeros(0), {"units": "days since 2000-01-01"}),
+                            "lat": [0.5, 1.5, 2.5], "lon": [10.5, 11.5]})
+    ds.to_netcdf(files / "emptytime.nc", unlimited_dims=["time"])
+    rc = main(["attach", str(files / "located.csv"), "--grid", str(files / "emptytime.nc"), "--name", "sst",
+               "-o", str(files / "o.csv")])
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert "emptytime.nc" in err and "has no steps" in err and "unexpected error" not in err
+    assert not (files / "o.csv").exists()

@@ -113,6 +113,27 @@ def test_nearest_valid_moves_coastal_sites_and_says_how_far():
     assert out["v_coverage"][3] == 1.0
 
 
+def test_nearest_valid_short_of_coverage_everywhere_keeps_the_own_cell_and_says_so():
+    # docs/extract.md, nearest-valid: a cell is valid with data in the row's window at
+    # min_coverage; with none, a site whose own cell has some data keeps it, with that
+    # cell's coverage (the fraction of the window's days with data) and its coverage flags.
+    g, lat, lon = _coast_grid()
+    # 1999-01-01 .. 2000-03-31: only January-March 2000 (91 of 456 days) is on the grid
+    t = table([1.1, 1.1], [-0.2, 2.0], "1999-01-01", "2000-03-31")
+    near = attach(t, g, name="v", spatial="nearest")
+    out = attach(t, g, name="v", spatial="nearest-valid:30km")
+    assert_allclose(near["v_coverage"][0], 91 / 456, rtol=1e-12)
+    assert near["v_flags"][0] == "partial_coverage;below_min_coverage"
+    assert out["v_flags"][0] == "no_valid_cell_within_30km;partial_coverage;below_min_coverage"
+    assert_allclose(out["v_coverage"][0], 91 / 456, rtol=1e-12)
+    assert np.isnan(out["v"][0])
+    assert (out["v_cell_lat"][0], out["v_cell_lon"][0], out["v_distance_km"][0]) == (
+        near["v_cell_lat"][0], near["v_cell_lon"][0], near["v_distance_km"][0])
+    # a site on land with no data anywhere within 30 km: no cell to keep, as before
+    assert out["v_flags"][1] == "no_valid_cell_within_30km" and out["v_coverage"][1] == 0.0
+    assert np.isnan(out["v_cell_lat"][1])
+
+
 def test_buffer_area_weighted_mean():
     lat = np.arange(40.125, 45.0, 0.25)
     lon = np.arange(0.125, 5.0, 0.25)

@@ -75,3 +75,13 @@ def test_help_has_examples_and_exit_codes(capsys):
     out = capsys.readouterr().out
     assert "examples:" in out and "Exit codes: 0 described, 2 a file" in out
     assert max(len(line) for line in out.splitlines()) <= 100  # wrapped for a terminal
+
+
+def test_empty_time_axis_exits_2_naming_the_file(tmp_path, capsys):
+    # Contract (exit codes in `envlink grid --help`): unreadable input exits 2 naming the
+    # file, like any other unreadable grid; a time axis of length 0 holds no data.
+    p = simple_grid(tmp_path / "emptytime.nc", np.zeros((0, 2, 2)), lat=LAT, lon=LON, time=np.zeros(0))
+    assert main(["grid", str(p)]) == 2
+    err = capsys.readouterr().err
+    assert "emptytime.nc" in err and "has no steps" in err
+    assert "unexpected error" not in err and "Traceback" not in err

@@ -305,3 +305,21 @@ def test_latitudes_beyond_90_are_refused(tmp_path):
                     lon=np.array([0.5, 1.5]), time=np.array([0.0]))
     with pytest.raises(GridError, match=r"latitude coordinate runs 95\.\.100, beyond -90\.\.90 .*with lat='NAME'"):
         open_grid(p)
+
+
+def test_time_axis_of_length_zero_is_a_grid_error_naming_the_file(tmp_path):
+    # A grid needs at least one time step to hold data (CF Conventions v1.11 §4.4: the time
+    # coordinate locates each step); an empty axis is unreadable input, named with its file,
+    # not an IndexError from cell inference.
+    p = simple_grid(tmp_path / "emptytime.nc", np.zeros((0, 3, 4)), lat=LAT, lon=LON,
+                    time=np.zeros(0))
+    with pytest.raises(GridError, match=r"time axis 'time' of .*emptytime\.nc has no steps"):
+        open_grid(p)
+    # The same file written by xarray with an unlimited time dimension (netCDF4 library).
+    ds = xr.Dataset({"sst": (("time", "lat", "lon"), np.zeros((0, 3, 4)), {"units": "degC"})},
+                    coords={"time": ("time", np.zeros(0), {"units": "days since 2000-01-01"}),
+                            "lat": ("lat", LAT, {"units": "degrees_north"}),
+                            "lon": ("lon", LON, {"units": "degrees_east"})})
+    ds.to_netcdf(tmp_path / "unlimited.nc", unlimited_dims=["time"])
+    with pytest.raises(GridError, match=r"unlimited\.nc has no steps \(length 0\)"):
+        open_grid(tmp_path / "unlimited.nc")

@@ -5,6 +5,9 @@ minimum coverage (and is above zero); otherwise the cells whose centres lie with
 D km are tried in order of distance, reading them as needed. Cells known to hold no
 data at any step are skipped unread. A row moved to another cell gets the flag
 ``nearest_valid_<distance>km``; one with no such cell ``no_valid_cell_within_<D>km``.
+A row with no such cell whose own cell has some data in the window keeps its own cell,
+so its coverage and coverage flags (``partial_coverage``, ``below_min_coverage``) say
+how short of the minimum it falls.
 """
 
 from __future__ import annotations
@@ -168,8 +171,8 @@ def nearest_valid(plan: ExtractionPlan, cells: CellSeries, flags: RowFlags,
     X, rows = cells.view(srcs.cells, desc=desc, halo=_halo(plan.geom, plan.lat[plan.active], km))
     have = srcs.cells.copy()
     row_x = srcs.row_src.copy()
-    fail = plan.active & ((row_x < 0) | (coverage(X, plan.steps, np.where(row_x >= 0, rows[row_x], -1),
-                                                  plan.spans) < thr))
+    own_cov = coverage(X, plan.steps, np.where(row_x >= 0, rows[row_x], -1), plan.spans)
+    fail = plan.active & ((row_x < 0) | (own_cov < thr))
     row_cell, row_dist = srcs.row_cell.copy(), srcs.row_dist.copy()
     if fail.any():
         fr = np.nonzero(fail)[0]
@@ -184,7 +187,9 @@ def nearest_valid(plan: ExtractionPlan, cells: CellSeries, flags: RowFlags,
             flags.add(np.asarray(gr[moved_mask], dtype=np.int64), np.asarray(moved_code, dtype=object))
         missing = np.nonzero(fail)[0]
         missing = np.asarray(missing[~np.isin(missing, gr)], dtype=np.int64)
-        row_x[missing] = -1
+        # a site's own cell with some data in the window, short of the minimum, is kept:
+        # its coverage and coverage flags then say why no cell counts as valid
+        row_x[missing[~((row_x[missing] >= 0) & (own_cov[missing] > 0))]] = -1
         flags.add(missing[srcs.row_cell[missing] < 0], "outside_grid")
         flags.add(missing, f"no_valid_cell_within_{km:g}km")
     out = Sources(np.arange(have.size + 1), have, np.ones(have.size), row_x, row_cell, row_dist,
