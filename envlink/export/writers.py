@@ -53,6 +53,7 @@ from envlink.errors import InputError
 from envlink.export.files import is_missing
 from envlink.export.formats import DEFAULT_FORMATS, EXPORT_FORMATS, output_paths, parse_formats
 from envlink.export.schema import jsonable, table_schema
+from envlink.tables.cells import cell_text
 from envlink.tables.kinds import typed_column
 
 __all__ = ["export_table", "check_columns_exportable"]
@@ -72,8 +73,8 @@ def _text_cells(s: pd.Series) -> pd.Series:
             return pd.Series(arr.to_numpy(zero_copy_only=False), dtype=object)
         except (pa.ArrowException, TypeError, ValueError):  # odd cells: one by one
             pass
-    text = [None if is_missing(v) or v == "" else (v.isoformat() if isinstance(v, _dt.date) else str(v))
-            for v in s.tolist()]  # fmt: skip
+    # typed cells as every command writes them (a whole number without ".0", a midnight date as YYYY-MM-DD)
+    text = [None if is_missing(v) or v == "" else cell_text(v) for v in s.tolist()]
     return pd.Series(text, dtype=object)
 
 

@@ -2,10 +2,11 @@
 
 ``NAME.xlsx`` (Office Open XML, written with openpyxl) has three sheets:
 
-- ``NAME`` (cut to Excel's 31 characters): the table, header first and frozen; numbers
-  are number cells, booleans true/false cells, dates date cells shown ``yyyy-mm-dd``,
-  text text cells (a cell starting with ``=`` stays text, never a formula); missing
-  values are empty cells;
+- ``NAME`` (cut to Excel's 31 characters): the table, header first and frozen, its
+  cells written by :func:`envlink.tables.xlsx.append_table`, the one Excel writer of
+  envlink: numbers are number cells, booleans true/false cells, dates date cells
+  shown ``yyyy-mm-dd``, text text cells (a cell starting with ``=`` stays text, never
+  a formula); missing values are empty cells;
 - ``columns``: each column's name, type, unit and description;
 - ``provenance``: the ``envlink`` section of the Data Package descriptor, one
   ``key.path`` and value per row.
@@ -23,18 +24,17 @@ from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pandas as pd
 
 from envlink.errors import InputError
 from envlink.export.files import typed_columns
+from envlink.tables.write import EXCEL_CELL_LIMIT
+from envlink.tables.xlsx import EXCEL_MAX_ROWS, append_table, text_row
 
 __all__ = ["write_xlsx", "EXCEL_MAX_ROWS", "EXCEL_MAX_CELL"]
 
-EXCEL_MAX_ROWS = 1_048_576
-EXCEL_MAX_CELL = 32_767
+EXCEL_MAX_CELL = EXCEL_CELL_LIMIT
 _SHEET_BAD = re.compile(r"[\[\]:*?/\\]")
-_DATE_FORMAT = "yyyy-mm-dd"
 
 
 def _flatten(obj: Any, prefix: str = "") -> Iterator[tuple[str, str]]:
@@ -72,48 +72,6 @@ def _check_text(columns: list[tuple[dict[str, Any], pd.Series]]) -> None:
                 )
 
 
-def _text_cell(ws: Any, value: str) -> Any:
-    """A text value; one starting with ``=`` as a text cell (never a formula)."""
-    from openpyxl.cell import WriteOnlyCell
-
-    if not value.startswith("="):
-        return value
-    cell = WriteOnlyCell(ws, value=value)
-    cell.data_type = "s"
-    return cell
-
-
-def _rows(ws: Any, columns: list[tuple[dict[str, Any], pd.Series]]) -> Iterator[list[Any]]:
-    """The data rows as Python values (None for missing), date cells formatted."""
-    from openpyxl.cell import WriteOnlyCell
-
-    values = []
-    for field, s in columns:
-        kind = field["type"]
-        if kind == "number":
-            v = s.to_numpy(dtype=np.float64)
-            values.append([None if not np.isfinite(x) else float(x) for x in v])
-        elif kind in ("integer", "boolean"):
-            values.append([None if x is pd.NA else (int(x) if kind == "integer" else bool(x)) for x in s.tolist()])
-        else:
-            values.append(s.tolist())
-    kinds = [f["type"] for f, _ in columns]
-    for row in zip(*values, strict=True):
-        out: list[Any] = []
-        for v, kind in zip(row, kinds, strict=True):
-            if v is None:
-                out.append(None)
-            elif kind == "date":
-                cell = WriteOnlyCell(ws, value=v)
-                cell.number_format = _DATE_FORMAT
-                out.append(cell)
-            elif kind == "string":
-                out.append(_text_cell(ws, v))
-            else:
-                out.append(v)
-        yield out
-
-
 def _sheet_name(name: str) -> str:
     title = _SHEET_BAD.sub("_", name)[:31].strip("'") or "table"
     return "table" if title.lower() in ("columns", "provenance", "history") else title
@@ -122,9 +80,7 @@ def _sheet_name(name: str) -> str:
 def write_xlsx(df: pd.DataFrame, files: Mapping[str, Path], descriptor: Mapping[str, Any], name: str) -> None:
     """``files["xlsx"]``: the table with typed cells, its ``columns`` and ``provenance`` sheets."""
     from openpyxl import Workbook
-    from openpyxl.cell import WriteOnlyCell
     from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
-    from openpyxl.styles import Font
 
     if len(df) >= EXCEL_MAX_ROWS:
         raise InputError(
@@ -135,27 +91,14 @@ def write_xlsx(df: pd.DataFrame, files: Mapping[str, Path], descriptor: Mapping[
     _check_text(columns)
     wb = Workbook(write_only=True)
     ws = wb.create_sheet(_sheet_name(name))
-    ws.freeze_panes = "A2"
-    bold = Font(bold=True)
-
-    def header(sheet: Any, labels: list[str]) -> list[Any]:
-        cells = []
-        for label in labels:
-            cell = WriteOnlyCell(sheet, value=label)
-            cell.font = bold
-            cells.append(cell)
-        return cells
-
-    ws.append(header(ws, [str(f["name"]) for f, _ in columns]))
-    for row in _rows(ws, columns):
-        ws.append(row)
+    append_table(ws, [(str(f["name"]), f["type"], s) for f, s in columns])  # text never a formula
     about = wb.create_sheet("columns")
-    about.append(header(about, ["column", "type", "unit", "description"]))
+    about.append(text_row(about, ["column", "type", "unit", "description"], bold=True))
     for f, _ in columns:
-        about.append([f["name"], f["type"], f.get("unit"), f.get("description")])
+        about.append(text_row(about, [f["name"], f["type"], f.get("unit"), f.get("description")]))
     prov = wb.create_sheet("provenance")
-    prov.append(header(prov, ["key", "value"]))
+    prov.append(text_row(prov, ["key", "value"], bold=True))
     for key, value in _flatten(descriptor.get("envlink", {})):
         clean = None if value is None else ILLEGAL_CHARACTERS_RE.sub("", value)[:EXCEL_MAX_CELL]
-        prov.append([key, None if clean is None else _text_cell(prov, clean)])
+        prov.append(text_row(prov, [key, clean]))
     wb.save(files["xlsx"])

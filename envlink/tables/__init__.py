@@ -7,6 +7,9 @@ extensions, text cells and atomic writes are handled once:
 - :mod:`envlink.tables.write`: :func:`write_table`, :func:`check_output_path`,
   :func:`check_cells_writable`;
 - :mod:`envlink.tables.csvtext`: :func:`write_csv` (pandas' CSV bytes, built with Arrow);
+- :mod:`envlink.tables.xlsx`: the one Excel sheet writer of envlink (typed cells; a text
+  starting with ``=`` stays text, never a formula), for :func:`write_table` and the
+  ``xlsx`` export format;
 - :mod:`envlink.tables.encoding`: how a CSV file's bytes become text (:func:`decode_table`);
 - :mod:`envlink.tables.header`: header cells (blank ones named, duplicates refused);
 - :mod:`envlink.tables.cells`: numbers and labels in text cells (:func:`cell_text`,

@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
+import numbers
 import re
 from collections.abc import Iterable, Sequence
 from typing import Any
@@ -37,7 +38,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["KINDS", "text_kind", "column_kind", "typed_column", "typed_frame", "is_blank"]
+from envlink.tables.cells import cell_text
+
+__all__ = ["KINDS", "text_kind", "column_kind", "typed_column", "typed_frame", "is_blank", "is_text_column"]
 
 #: Column kinds, named as the Frictionless Table Schema names its field types.
 KINDS = ("integer", "number", "boolean", "date", "string")
@@ -111,8 +114,14 @@ _NUMBER_RE = r"^-?(?:(?:0|[1-9][0-9]*)(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)
 _DATE_RE = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}$"
 
 
-def _all_text(s: pd.Series) -> bool:
-    """Whether every cell of ``s`` is text or missing (a text dtype, or objects that are all str)."""
+def is_text_column(s: pd.Series) -> bool:
+    """Whether every cell of ``s`` is text or missing (a text dtype, or objects that are all str).
+
+    Examples
+    --------
+    >>> is_text_column(pd.Series(["a", None])), is_text_column(pd.Series([1.5, "a"], dtype=object))
+    (True, False)
+    """
     return isinstance(s.dtype, pd.StringDtype) or (
         s.dtype == object and pd.api.types.infer_dtype(s, skipna=True) in ("string", "empty"))
 
@@ -192,13 +201,15 @@ def column_kind(s: pd.Series) -> str:
         return "number"
     if pd.api.types.is_datetime64_any_dtype(dtype):
         return "date"
-    if _all_text(s):
+    if is_text_column(s):
         return _text_column_kind(s)
     cells = [v for v in s.tolist() if not is_blank(v)]
     if cells and all(isinstance(v, bool | np.bool_) for v in cells):
         return "boolean"
     if cells and all(isinstance(v, _dt.date) and not isinstance(v, _dt.datetime) for v in cells):
         return "date"
+    if cells and all(isinstance(v, numbers.Real) and not isinstance(v, bool | np.bool_) for v in cells):
+        return "integer" if all(isinstance(v, numbers.Integral) for v in cells) else "number"
     return text_kind(cells)
 
 
@@ -241,7 +252,7 @@ def typed_column(s: pd.Series, kind: str) -> pd.Series:
     elif kind == "date":
         out = np.array([_date(v) for v in values], dtype=object)
     else:
-        out = np.array([None if is_blank(v) else str(v) for v in values], dtype=object)
+        out = np.array([None if is_blank(v) else cell_text(v) for v in values], dtype=object)
     return pd.Series(out, index=s.index, name=s.name, dtype=object if kind in ("date", "string") else None)
 
 
@@ -249,19 +260,43 @@ def typed_frame(df: pd.DataFrame, columns: Sequence[Any] | None = None) -> pd.Da
     """A copy of ``df`` whose text columns (or those of ``columns``) are typed where they parse.
 
     Columns that are typed already, and text columns whose cells do not all parse as
-    one kind, are left as they are.
+    one kind, are left as they are. An object column whose cells are of one kind
+    (numbers, booleans, dates) is typed as that kind; one that mixes kinds (numbers
+    and text, as compiled spreadsheets hold them) becomes text, each cell as
+    :func:`~envlink.tables.cells.cell_text` writes it and missing cells missing, so
+    that every typed writer can store it.
 
     Examples
     --------
     >>> t = typed_frame(pd.DataFrame({"n": ["40", "41"], "code": ["007", "008"], "x": [0.5, 1.0]}))
     >>> str(t["n"].dtype), t["code"].tolist(), t["x"].tolist()
     ('Int64', ['007', '008'], [0.5, 1.0])
+    >>> typed_frame(pd.DataFrame({"lat": [-3.1, "12°30'S", None, 60.0]}))["lat"].tolist()
+    ['-3.1', "12°30'S", None, '60']
     """
     out = df.copy()
     for col in columns if columns is not None else df.columns:
         s = df[col]
-        if pd.api.types.is_object_dtype(s.dtype) or pd.api.types.is_string_dtype(s.dtype):
-            kind = _text_column_kind(s) if _all_text(s) else text_kind(s.tolist())
+        if is_text_column(s):
+            kind = _text_column_kind(s)
             if kind != "string":
                 out[col] = typed_column(s, kind)
+        elif pd.api.types.is_object_dtype(s.dtype):
+            kind = column_kind(s)
+            if kind != "string":
+                out[col] = typed_column(s, kind)
+            elif not _all_datetimes(s):  # cells of several kinds: each as its text, missing kept
+                out[col] = pd.Series([None if _missing(v) else cell_text(v) for v in s.tolist()],
+                                     index=s.index, name=s.name, dtype=object)
     return out
+
+
+def _missing(v: Any) -> bool:
+    """Whether a cell is a missing value (None, NA, NaT, NaN); blank text is a value."""
+    return v is None or v is pd.NA or v is pd.NaT or (isinstance(v, float) and math.isnan(v))
+
+
+def _all_datetimes(s: pd.Series) -> bool:
+    """Whether every cell of an object column is a date-time (which typed writers store as such)."""
+    cells = [v for v in s.tolist() if not _missing(v)]
+    return bool(cells) and all(isinstance(v, _dt.datetime) for v in cells)

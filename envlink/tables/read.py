@@ -82,7 +82,8 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
     as_text : bool, default False
         Read every cell as text, exactly as written (blank cells become ``""``), so
         that a stage can keep the user's columns unchanged. Cells of typed files
-        (Parquet, Excel) become text through :func:`cell_text`.
+        (Parquet, Excel) become text through :func:`cell_text`; an Excel text cell
+        stays as typed (``007``, ``NA``: no number or missing value is guessed from it).
 
     Returns
     -------
@@ -116,8 +117,11 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
         if suffix in (".xlsx", ".xls"):
             header = pd.read_excel(p, header=None, nrows=1)
             names = header_names([] if header.empty else header.iloc[0].tolist(), p)
-            df = _named(pd.read_excel(p), names)
-            return _typed_as_text(df) if as_text else df
+            if not as_text:
+                return _named(pd.read_excel(p), names)
+            # each cell as the workbook stores it (no number guessed from text, no "NA" read as missing)
+            df = pd.read_excel(p, dtype=object, keep_default_na=False, na_filter=False)
+            return _typed_as_text(_named(df, names))
         if suffix not in (".csv", ".tsv", ".txt"):
             raise InputError(
                 f"Cannot read table {str(p)!r}: unknown extension {suffix!r}; "
@@ -163,12 +167,18 @@ def read_table(path: str | os.PathLike[str], *, as_text: bool = False) -> pd.Dat
 
 
 def read_table_as_written(path: str | os.PathLike[str]) -> pd.DataFrame:
-    """Read a table keeping what the user wrote: text cells of CSV, typed cells of Parquet / Excel.
+    """Read a table keeping what the user wrote: text cells of CSV and Excel, typed cells of Parquet.
 
     CSV / TSV cells are read as text, exactly as written (see :func:`read_table`
-    with ``as_text=True``); Parquet and Excel columns keep their stored types, so a
-    table written back out has the same column types as the input. Stages that read
-    text from cells (``locate``) turn typed cells into text with :func:`cell_text`.
+    with ``as_text=True``). Excel cells are read as text too, each as
+    :func:`cell_text` writes the value the workbook stores: a whole number without
+    ``.0`` (``60``), other numbers in their shortest form (``-5.123456789012``), a
+    date ``YYYY-MM-DD`` (``YYYY-MM-DDTHH:MM:SS`` when it has a time of day), a text
+    cell exactly as typed (``007``, ``40``, ``NA``), an empty cell ``""``; so every
+    command writes them the same way, and typed outputs type them as they type a
+    CSV's columns. Parquet columns keep their stored types, so a table written back
+    out has the same column types as the input. Stages that read text from cells
+    (``locate``) turn typed cells into text with :func:`cell_text`.
 
     Examples
     --------
@@ -179,4 +189,4 @@ def read_table_as_written(path: str | os.PathLike[str]) -> pd.DataFrame:
     [{'year': '2001', 'n': '007'}]
     """
     suffix = Path(path).suffix.lower()
-    return read_table(path, as_text=suffix in (".csv", ".tsv", ".txt"))
+    return read_table(path, as_text=suffix in (".csv", ".tsv", ".txt", ".xlsx", ".xls"))

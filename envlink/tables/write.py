@@ -15,6 +15,7 @@ from envlink.core.util import atomic_path
 from envlink.errors import InputError
 from envlink.tables.csvtext import write_csv
 from envlink.tables.kinds import typed_frame
+from envlink.tables.xlsx import write_xlsx_table
 
 __all__ = ["write_table", "check_output_path", "check_cells_writable", "csv_line_end", "EXCEL_CELL_LIMIT"]
 
@@ -152,8 +153,11 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
     path : path-like
         ``.csv``, ``.tsv``, ``.parquet`` / ``.pq`` or ``.xlsx``. CSV and TSV cells are
         written as they are; in Parquet and Excel a text column whose cells all parse
-        as integers, numbers, ISO dates or true/false is written typed
+        as integers, numbers, ISO dates or true/false is written typed, a column that
+        mixes numbers and text is written as text, each cell as written
         (:func:`envlink.tables.kinds.typed_frame`), and typed columns keep their types.
+        Excel cells are written by :mod:`envlink.tables.xlsx`: a text starting with
+        ``=`` stays text, never a formula.
     force : bool, default True
         When False, an existing file is an :class:`InputError`.
 
@@ -173,8 +177,8 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike[str], *, force: bool =
                 write_csv(df, tmp, sep="\t" if suffix == ".tsv" else ",", lineterminator=csv_line_end(df))
             elif suffix in (".parquet", ".pq"):
                 df.to_parquet(tmp, index=False)
-            else:
-                df.to_excel(tmp, index=False)
+            else:  # the one Excel writer (text never a formula)
+                write_xlsx_table(df, tmp)
     except OSError as exc:
         raise InputError(f"Cannot write table {str(p)!r}: {_os_reason(exc, p)}.") from exc
     except ImportError as exc:
