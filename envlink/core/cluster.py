@@ -88,7 +88,7 @@ def _why(exc: BaseException, seconds: float) -> str:
         return f"no Dask reply within {seconds:g} s"
     if isinstance(exc, (OSError, TimeoutError, ValueError)):  # ValueError: not an address
         return str(exc) or type(exc).__name__
-    return f"the reply is not Dask's protocol: {type(exc).__name__}"
+    return "it replied, but not in Dask's protocol"  # e.g. bytes of an HTTP reply read as a length
 
 
 def _attempt(make: Any, deadline: float) -> Any:
