@@ -4,8 +4,9 @@ Exit codes: 0 success; 1 the run failed (grid values that cannot be read, an I/O
 error reading a valid file, a model that cannot be fitted, an unexpected error); 2 bad
 usage or bad input (a missing column, an invalid value in a table, a bad formula, a
 file that is not what it claims); 128 + N stopped by signal N (SIGINT, SIGTERM and
-SIGHUP alike: temporary files removed, previous outputs intact; see
-:mod:`envlink.commands.signals`). Results go to files or stdout; messages go to
+SIGHUP alike, from the moment :func:`main` starts, while the command modules are
+imported too: temporary files removed, previous outputs intact, one line on stderr; see
+:mod:`envlink.commands.signals`). Only the named command's module is imported. Results go to files or stdout; messages go to
 stderr, the first line naming the row, field, file or key. No traceback reaches a
 user unless ``--debug`` or the environment variable ``ENVLINK_DEBUG=1`` asks for one;
 the warnings of the libraries envlink uses are shown only then too (envlink's own
@@ -26,6 +27,7 @@ from collections.abc import Sequence
 
 from envlink.commands.options import ParamOptions, command_line_message, command_line_text
 from envlink.commands.signals import exit_code, signal_name, stop_on_signals
+from envlink.core.util import pause_at_start_for_tests
 from envlink.core.versions import VERSION
 from envlink.errors import EnvlinkError, EnvlinkWarning, InputError
 
@@ -37,8 +39,13 @@ COMMANDS = ("sites", "grid", "attach", "effects", "fit", "scan", "impute", "repo
             "cache")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """Build the top-level parser with every available sub-command."""
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """Build the top-level parser with every available sub-command, or only ``command``'s.
+
+    Only the named command's module is imported when ``command`` is given (what
+    :func:`main` does when its arguments name one), so a command starts without
+    importing the others; ``envlink --help`` builds them all.
+    """
     parser = argparse.ArgumentParser(
         prog="envlink",
         description=(
@@ -54,7 +61,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--debug", action="store_true", help="show a full traceback with every error (for bug reports)"
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for name in COMMANDS:
+    for name in COMMANDS if command is None else (command,):
         try:
             module = importlib.import_module(f"envlink.commands.{name}")
         except ModuleNotFoundError as exc:  # a command not built yet in this checkout
@@ -65,6 +72,33 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _command_named(argv: Sequence[str]) -> str | None:
+    """The command the arguments name when nothing before it needs the whole parser, else None.
+
+    Examples
+    --------
+    >>> _command_named(["--debug", "fit", "t.csv"]), _command_named(["--help", "fit"]), _command_named(["fi"])
+    ('fit', None, None)
+    """
+    for word in argv:
+        if word != "--debug":  # the only top-level option that neither prints nor exits
+            return word if word in COMMANDS else None
+    return None
+
+
+def _parse(parser: argparse.ArgumentParser, argv: Sequence[str]) -> argparse.Namespace:
+    """``parser.parse_args(argv)``, except that a command whose ``late_words`` default names a
+    list of words (``envlink cache``) also takes the words that come after its options, so the
+    command itself judges them (``cache clear --all GRID``)."""
+    args, extra = parser.parse_known_args(argv)
+    late = getattr(args, "late_words", None)
+    if extra and late and not any(word.startswith("-") for word in extra):
+        getattr(args, late).extend(extra)
+    elif extra:
+        parser.error(f"unrecognized arguments: {' '.join(extra)}")  # argparse's own message, exit 2
+    return args
+
+
 def param_options(command: str) -> ParamOptions:
     """The ``PARAM_OPTIONS`` of a command: its Python parameters -> its options."""
     module = sys.modules.get(f"envlink.commands.{command}")
@@ -73,14 +107,31 @@ def param_options(command: str) -> ParamOptions:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the ``envlink`` command line and return its exit code."""
-    parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    who = "envlink"
     try:
-        args = parser.parse_args(argv)
-    except SystemExit as exc:  # argparse exits 2 on bad usage, 0 on --help
-        return int(exc.code or 0)
-    if not getattr(args, "command", None):
-        parser.print_help(sys.stderr)
-        return 2
+        # stop signals end the run cleanly from the first moment, imports included
+        with stop_on_signals():
+            pause_at_start_for_tests()
+            parser = build_parser(_command_named(argv))
+            try:
+                args = _parse(parser, argv)
+            except SystemExit as exc:  # argparse exits 2 on bad usage, 0 on --help
+                return int(exc.code or 0)
+            if not getattr(args, "command", None):
+                parser.print_help(sys.stderr)
+                return 2
+            who = f"envlink {args.command}"
+            return _dispatch(args)
+    except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP (envlink.commands.signals)
+        signum = getattr(exc, "signum", signal.SIGINT)
+        print(f"{who}: stopped by {signal_name(signum)}; previous outputs were "
+              "left as they were and no partial output was left.", file=sys.stderr)
+        return exit_code(signum)
+
+
+def _dispatch(args: argparse.Namespace) -> int:
+    """Run the parsed command; its errors become one message and an exit code."""
     debug = args.debug or os.environ.get("ENVLINK_DEBUG") == "1"
     if getattr(args, "no_progress", False):  # every command takes --no-progress
         from envlink.core.progress import hide_progress
@@ -100,8 +151,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
     warnings.showwarning = show
     try:
-        with stop_on_signals():
-            return int(args.handler(args) or 0)
+        return int(args.handler(args) or 0)
     except InputError as exc:
         if debug:
             traceback.print_exc()
@@ -112,11 +162,6 @@ def main(argv: Sequence[str] | None = None) -> int:
             traceback.print_exc()
         print(f"envlink {args.command}: failed: {command_line_message(exc, options)}", file=sys.stderr)
         return 1
-    except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP (envlink.commands.signals)
-        signum = getattr(exc, "signum", signal.SIGINT)
-        print(f"envlink {args.command}: stopped by {signal_name(signum)}; previous outputs were "
-              "left as they were and no partial output was left.", file=sys.stderr)
-        return exit_code(signum)
     except BrokenPipeError:
         # stdout was closed early (e.g. piped into `head`): not an error of envlink.
         # Point stdout at devnull so the interpreter's final flush stays quiet.

@@ -90,7 +90,7 @@ def test_envlink_warnings_print_as_plain_messages(monkeypatch, capsys) -> None:
         return 0
 
     parser = cli.build_parser()
-    monkeypatch.setattr(cli, "build_parser", lambda: parser)
+    monkeypatch.setattr(cli, "build_parser", lambda command=None: parser)
     sites = parser._subparsers._group_actions[0].choices["sites"]  # type: ignore[union-attr]
     sites.set_defaults(handler=handler)
     with warnings.catch_warnings():

@@ -66,3 +66,39 @@ def test_a_group_lands_together_or_not_at_all(tmp_path: Path) -> None:
                 tmp.write_text("new")
         assert (tmp_path / "a.csv").read_text() == "previous"  # renamed only at the end
     assert [(tmp_path / n).read_text() for n in ("a.csv", "b.csv")] == ["new", "new"]
+
+
+@pytest.mark.parametrize(("name", "command"), [("SIGINT", "demo"), ("SIGTERM", "fit"), ("SIGHUP", "--help")])
+def test_a_stop_while_the_command_line_starts_is_one_clean_line(tmp_path: Path, name: str, command: str) -> None:
+    # the shell's rule (128 + N) and envlink's one-line stop message, with no traceback, also
+    # while the command modules (pandas, pyarrow, ...) are imported: ENVLINK_TEST_PAUSE_START
+    # holds the process just before that, with the handlers already set
+    import subprocess
+    import sys
+    import time
+
+    import envlink
+
+    sig = getattr(signal, name)
+    marker = tmp_path / ".started"
+    env = {**os.environ, "ENVLINK_TEST_PAUSE_START": str(marker),
+           "PYTHONPATH": str(Path(envlink.__file__).resolve().parents[1])}
+    argv = {"demo": ["demo", "--out", "d", "--force"], "fit": ["fit", "t.csv", "--effect", "y", "--variance", "v"],
+            "--help": ["--help"]}[command]
+    proc = subprocess.Popen([sys.executable, "-m", "envlink", *argv], cwd=tmp_path, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    try:
+        deadline = time.monotonic() + 60
+        while not marker.exists():
+            assert proc.poll() is None and time.monotonic() < deadline, proc.communicate()
+            time.sleep(0.02)
+        proc.send_signal(sig)
+        out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 128 + sig, err
+    assert err == (f"envlink: stopped by {name}; previous outputs were left as they were and no partial "
+                   "output was left.\n"), err
+    assert out == "" and sorted(p.name for p in tmp_path.iterdir()) == [".started"]  # nothing written

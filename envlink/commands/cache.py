@@ -53,7 +53,8 @@ def register(subparsers: Any) -> None:
     p.add_argument("--dir", metavar="DIR", help="envlink's cache folder (default: $ENVLINK_CACHE, else the user's)")
     p.add_argument("--json", action="store_true", help="list: write the stores as JSON on stdout")
     p.add_argument("--no-progress", action="store_true", help="accepted for every command; this one draws none")
-    p.set_defaults(handler=run)
+    # words after an option (`clear --all GRID`) are this command's to judge (envlink.cli)
+    p.set_defaults(handler=run, late_words="words")
 
 
 #: Python parameter -> option of ``envlink cache``, for messages (envlink.commands.options).

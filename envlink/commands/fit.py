@@ -107,7 +107,8 @@ def register(subparsers: Any) -> None:
         description=DESCRIPTION, epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    p.add_argument("table", metavar="TABLE", help="input table (.csv/.tsv/.txt, .parquet, .xlsx)")
+    p.add_argument("table", metavar="TABLE", help="input table (.csv/.tsv/.txt, .parquet, .xlsx; with --scheduler: Parquet "
+                        "or a Zarr store only)")
     add_model_options(p)
     p.add_argument("--permutations", metavar="N", type=int, default=0,
                    help="also run permutation tests with N permutations: one p per moderator term "
@@ -138,9 +139,9 @@ def register(subparsers: Any) -> None:
                         "they exist (never TABLE)")
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="reduce each iteration's sums on a dask.distributed cluster (e.g. "
-                        "tcp://10.0.0.5:8786); TABLE may then also be a folder or glob of Parquet "
-                        "files or a Zarr store of 1-D arrays; moderators a plain sum of numeric "
-                        "columns (docs/scaling.md)")
+                        "tcp://10.0.0.5:8786); TABLE must then be Parquet (a file, or a folder or "
+                        "glob of files) or a Zarr store of 1-D arrays, not a CSV or workbook; "
+                        "moderators a plain sum of numeric columns (docs/scaling.md)")
     p.set_defaults(handler=run)
 
 
@@ -299,6 +300,10 @@ def run(args: argparse.Namespace) -> int:
     """Run ``envlink fit``; returns the exit code."""
     from envlink.core.cluster import on_cluster
 
+    if getattr(args, "scheduler", None) is not None:  # before the cluster is touched
+        from envlink.metareg.chunked import check_cluster_source
+
+        check_cluster_source(args.table, reader="--scheduler reads TABLE", otherwise="fit without --scheduler")
     with on_cluster(getattr(args, "scheduler", None)):
         return _run(args)
 

@@ -10,7 +10,8 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-__all__ = ["did_you_mean", "atomic_path", "atomic_group", "probe_writable", "pause_for_tests", "INVISIBLE_CHARS"]
+__all__ = ["did_you_mean", "atomic_path", "atomic_group", "probe_writable", "pause_for_tests", "pause_at_start_for_tests",
+           "INVISIBLE_CHARS"]
 
 
 def did_you_mean(name: str, choices: Iterable[str]) -> str:
@@ -142,9 +143,31 @@ def pause_for_tests(target: Path) -> None:
     marker = os.environ.get("ENVLINK_TEST_PAUSE_WRITE")
     if not marker or os.environ.get("ENVLINK_TEST_PAUSE_MATCH", "") not in target.name:
         return
+    _pause(Path(marker), str(target))
+
+
+def pause_at_start_for_tests() -> None:
+    """Test hook: stop before the command line imports its commands and parses its arguments.
+
+    When ``ENVLINK_TEST_PAUSE_START`` names a file, that file is created and the command
+    waits ``ENVLINK_TEST_PAUSE_SECONDS`` (default 60), so a test can send a stop signal
+    at the moment the command modules (and pandas, pyarrow, ...) would be imported
+    (tests/test_signals.py).
+
+    Examples
+    --------
+    >>> pause_at_start_for_tests()  # the variable unset: returns at once
+    """
+    marker = os.environ.get("ENVLINK_TEST_PAUSE_START")
+    if marker:
+        _pause(Path(marker), "start")
+
+
+def _pause(marker: Path, text: str) -> None:
+    """Create ``marker`` holding ``text``, then wait ``ENVLINK_TEST_PAUSE_SECONDS``."""
     import time
 
-    Path(marker).write_text(str(target), encoding="utf-8")
+    marker.write_text(text, encoding="utf-8")
     # Short slices: a signal whose C handler ran in another thread (the kernel may hand a
     # process-wide signal to any thread) still reaches its Python handler within 50 ms.
     end = time.monotonic() + float(os.environ.get("ENVLINK_TEST_PAUSE_SECONDS", "60"))

@@ -30,7 +30,7 @@ from envlink.metareg.design import INTERCEPT, Design
 from envlink.metareg.formula import rows_text
 from envlink.tables.numeric import parquet_pieces
 
-__all__ = ["design_from_source", "fit_on_cluster", "is_zarr"]
+__all__ = ["design_from_source", "fit_on_cluster", "is_zarr", "check_cluster_source"]
 
 
 def is_zarr(source: str | os.PathLike[str]) -> bool:
@@ -38,6 +38,50 @@ def is_zarr(source: str | os.PathLike[str]) -> bool:
     p = Path(source)
     return p.suffix.lower() == ".zarr" or any(
         (p / name).exists() for name in (".zgroup", ".zarray", "zarr.json"))
+
+
+#: what a table file that is not Parquet is, by its suffix (envlink.tables.TABLE_SUFFIXES)
+_NOT_PARQUET = {".csv": "a CSV", ".tsv": "a TSV", ".txt": "a text table", ".xlsx": "an Excel workbook",
+                ".xls": "an Excel workbook"}
+
+
+def check_cluster_source(source: str | os.PathLike[str], *, reader: str = "A cluster fit reads the source",
+                         otherwise: str = "fit it in memory") -> None:
+    """Refuse a single file that is not Parquet before any cluster work.
+
+    A Zarr store, a folder and a glob pass (their files are checked when read); a file
+    must start with Parquet's magic bytes ``PAR1`` (the Apache Parquet format's rule).
+    ``reader`` and ``otherwise`` word the message (the command line names its options).
+
+    Raises
+    ------
+    InputError
+        ``source`` is a file that is not Parquet (a CSV, a workbook, ...).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "eff.csv"
+    >>> _ = path.write_text("y,v\\n0.1,0.02\\n")
+    >>> try:
+    ...     check_cluster_source(path)
+    ... except InputError as exc:
+    ...     print(str(exc).split("' is ")[1])
+    a CSV: convert it to Parquet (e.g. with -o eff.parquet on the envlink command that wrote it, or pandas' to_parquet) or fit it in memory.
+    """
+    p = Path(source)
+    if not p.is_file() or is_zarr(p):
+        return
+    try:
+        with p.open("rb") as f:
+            if f.read(4) == b"PAR1":
+                return
+    except OSError:
+        return  # the read reports it
+    kind = _NOT_PARQUET.get(p.suffix.lower(), "not a Parquet file (it lacks Parquet's magic bytes)")
+    raise InputError(f"{reader} as Parquet (a file, folder or glob of files) or a Zarr store; {str(source)!r} is "
+                     f"{kind}: convert it to Parquet (e.g. with -o {p.stem}.parquet on the envlink command that "
+                     f"wrote it, or pandas' to_parquet) or {otherwise}.")
 
 
 def _zarr_pieces(source: str | os.PathLike[str], columns: list[str]) -> list[tuple[str, int, int]]:
@@ -116,6 +160,7 @@ def design_from_source(source: str | os.PathLike[str], *, effect: str, variance:
     import dask
     import dask.array as da
 
+    check_cluster_source(source)
     terms = plain_terms(moderators)
     if terms is None:
         raise InputError(f"On a cluster the moderators must be a plain sum of numeric columns "

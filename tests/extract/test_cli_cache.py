@@ -73,3 +73,23 @@ def test_help(capsys) -> None:
     assert main(["cache", "--help"]) == 0
     out = capsys.readouterr().out
     assert "ENVLINK_STORE_MAX" in out and "Exit codes" in out and "--no-progress" in out
+
+
+@pytest.mark.parametrize("argv", [["clear", "--all", "GRID"], ["clear", "--all", "--dir", "CACHE", "GRID"],
+                                  ["clear", "GRID", "--all", "GRID"]])
+def test_all_and_a_grid_after_an_option_is_the_commands_own_message(filled, capsys, argv) -> None:
+    # common practice for a command line: a word after an option is still the command's
+    # word, so `envlink cache` itself says --all and GRID do not go together (not argparse's
+    # "unrecognized arguments"), exit 2, and nothing is cleared
+    cache, grids = filled
+    words = [str(cache) if w == "CACHE" else str(grids[0]) if w == "GRID" else w for w in argv]
+    if "--dir" not in words:
+        words += ["--dir", str(cache)]
+    assert main(["cache", *words]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("envlink cache: error: Say what to clear") and "not both" in err
+    assert "usage:" not in err and "unrecognized" not in err
+    assert main(["cache", "list", "--json", "--dir", str(cache)]) == 0
+    assert len(json.loads(capsys.readouterr().out)["stores"]) == 2  # nothing cleared
+    assert main(["cache", "clear", "--all", str(grids[0]), "--bogus"]) == 2  # an unknown option: argparse's
+    assert "unrecognized arguments: " in capsys.readouterr().err
