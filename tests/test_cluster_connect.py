@@ -70,12 +70,22 @@ def not_dask(request: pytest.FixtureRequest) -> Iterator[str]:
 
 
 def test_a_service_that_is_not_dask_is_an_input_error_within_the_timeout(not_dask: str) -> None:
+    import dask
+
+    before = dask.config.get("scheduler", None)
     start = time.monotonic()
     with pytest.raises(InputError, match="No Dask scheduler answers at .*may not be a Dask scheduler") as info:
         connect(not_dask, timeout=TIMEOUT)
     assert "within 1 s" in str(info.value) or "not in Dask's protocol" in str(info.value)
     assert "MemoryError" not in str(info.value)  # an HTTP reply's bytes once read as a message length
     assert time.monotonic() - start < TIMEOUT + 2 + 3  # the hard deadline, with slack for a busy machine
+    # the failed client does not stay dask's default scheduler (later computes of this
+    # process would ask for a cluster that is not there)
+    assert dask.config.get("scheduler", None) == before
+    import dask.array as da
+    import numpy as np
+
+    assert float(da.from_array(np.ones(4), chunks=2).sum().compute()) == 4.0
 
 
 def test_the_timeout_comes_from_the_environment(monkeypatch: pytest.MonkeyPatch) -> None:

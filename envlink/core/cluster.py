@@ -73,13 +73,39 @@ def connect(scheduler: Any, *, timeout: float | None = None) -> Any:
         return scheduler
     seconds = connect_timeout() if timeout is None else float(timeout)
     address = str(scheduler)
+    def make() -> Any:
+        # a Client made for a service that is not a scheduler is left half open as dask's
+        # default, holding every later compute() of this process: ask first
+        _ask_identity(address, seconds)
+        return Client(address, timeout=f"{seconds}s")
+
     try:
-        return _attempt(lambda: Client(address, timeout=f"{seconds}s"), seconds + _GRACE)
+        return _attempt(make, seconds + _GRACE)
     except Exception as exc:  # noqa: BLE001 - whatever the other end did, the address is bad input
         raise InputError(f"No Dask scheduler answers at {address!r} ({_why(exc, seconds)}); the service "
                          "there may not be a Dask scheduler (a scheduler listens on port 8786 by default; "
                          "its dashboard, 8787, is a web page). Start one with `dask scheduler` and workers "
                          "with `dask worker ADDRESS` (docs/scaling.md).") from None
+
+
+def _ask_identity(address: str, seconds: float) -> None:
+    """Ask ``address`` who it is, within ``seconds``; an exception unless a Dask scheduler answers."""
+    import asyncio
+
+    from distributed.comm import connect as open_comm
+
+    async def ask() -> Any:
+        comm = await open_comm(address, timeout=seconds)
+        try:
+            await comm.write({"op": "identity", "reply": True})
+            return await comm.read()
+        finally:
+            comm.abort()
+
+    reply = asyncio.run(asyncio.wait_for(ask(), seconds))
+    if not (isinstance(reply, dict) and reply.get("type") == "Scheduler"):
+        raise ConnectionError(f"what answers there is a {reply.get('type') if isinstance(reply, dict) else 'service'}"
+                              ", not a Dask scheduler")
 
 
 def _why(exc: BaseException, seconds: float) -> str:
