@@ -41,7 +41,8 @@ options apply to every covariate).
 
 TABLE should hold the columns that 'envlink sites' adds. If it does not, give the
 same column options as 'envlink sites' (--lat/--lon, --coords, --site with
---gazetteer, --period or --start/--end) and the rows are located first."""
+--gazetteer, --period or --start/--end) and the rows are located first; locating
+with no date option warns, as no row then has a period."""
 
 EPILOG = """\
 Statistics, windows and spatial rules are listed in the --stat, --window and --spatial
@@ -312,6 +313,7 @@ def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, 
         from envlink.locate.sites import locate
 
         table = locate(table, progress=progress, **locate_kwargs(args))
+        _warn_without_dates(args)
     else:
         note_unused_locate_options(args, "attach")
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
@@ -324,6 +326,20 @@ def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, 
     write_table(result, out, force=True)
     print(summary(result, [c["name"] for c in covs], str(out)), file=sys.stderr)
     return 0
+
+
+def _warn_without_dates(args: argparse.Namespace) -> None:
+    """Warn when ``attach`` located the table with no date option: no row can get a covariate."""
+    import warnings
+
+    from envlink.errors import TableWarning
+
+    if not any(getattr(args, k, None) for k in ("period", "start", "end")):
+        warnings.warn(
+            "The table was located without a date option, so every row lacks a period (flag no_period) "
+            "and no covariate can be computed; give --period COL, or --start COL --end COL.",
+            TableWarning, stacklevel=2,
+        )
 
 
 #: Python parameter -> option of ``envlink attach``, for messages (envlink.commands.options).
