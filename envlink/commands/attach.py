@@ -16,7 +16,8 @@ from envlink.commands.sites import (
     locate_kwargs,
     note_unused_locate_options,
 )
-from envlink.errors import InputError
+from envlink.core.columns import COVARIATE_NAME_RULE, covariate_name_ok
+from envlink.errors import InputError, param_error
 from envlink.extract.rules import SPATIAL_RULES
 from envlink.extract.statistics import STATISTICS
 from envlink.extract.windows import TIME_WEIGHTS, WINDOWS
@@ -93,7 +94,8 @@ def register(subparsers: Any) -> None:
     p.add_argument("--grid", metavar="FILE", required=True, help="the grid: netCDF, Zarr, GeoTIFF or a glob of files")
     p.add_argument("--var", metavar="NAME", help="the grid's variable (needed when the file holds several)")
     add_grid_arguments(p)
-    p.add_argument("--name", metavar="COLUMN", help="name of the new covariate column (one covariate)")
+    p.add_argument("--name", metavar="COLUMN", help="name of the new covariate column (one covariate): letters, digits and _, "
+                        "not starting with a digit")
     p.add_argument("--stat", metavar="STAT",
                    help=f"window statistic: {STATISTICS.help_text()} (default mean)")
     p.add_argument("--window", metavar="WINDOW",
@@ -248,12 +250,16 @@ def covariate_specs(args: argparse.Namespace) -> list[dict[str, Any]]:
             name, eq, rest = text.partition("=")
             if not eq or not name.strip() or not rest.partition("@")[0].strip():
                 raise InputError(f"--covariate {text!r}: write {SPEC_FORM}.")
+            if not covariate_name_ok(name.strip()):
+                raise InputError(f"--covariate {text!r}: the name {name.strip()!r} must be {COVARIATE_NAME_RULE}.")
             stat, _, window = rest.partition("@")
             for reg, value in ((STATISTICS, stat), (WINDOWS, window or "period")):
                 if not reg.accepts(value):
                     raise InputError(f"--covariate {text!r}: {_refusal(reg, value)}")
         covs = parse_covariates(args.covariate, {"stat": "mean", "window": "period"}, "attach")
     elif args.name is not None:
+        if not covariate_name_ok(args.name):
+            raise param_error("name", "attach", COVARIATE_NAME_RULE, args.name)
         covs = [{"name": args.name, "stat": "mean" if args.stat is None else args.stat,
                  "window": "period" if args.window is None else args.window}]
     else:
