@@ -34,6 +34,7 @@ __all__ = [
     "DiagnosticWarning",
     "TableWarning",
     "InvalidValueError",
+    "TooFewRowsError",
     "param_error",
     "user_stacklevel",
     "warn",
@@ -133,6 +134,20 @@ class ModelOptionError(InputError, ModelError):
     Examples
     --------
     >>> issubclass(ModelOptionError, InputError) and issubclass(ModelOptionError, ModelError)
+    True
+    """
+
+
+class TooFewRowsError(InputError, ModelError):
+    """Too few usable rows to fit the model asked for: bad input (the command line exits 2).
+
+    A property of the data, the same from ``envlink fit``, ``envlink scan``, a project's
+    [model] and ``MetaRegression.fit``. It is also a :class:`ModelError`, so callers that
+    caught those before keep catching it.
+
+    Examples
+    --------
+    >>> issubclass(TooFewRowsError, InputError) and issubclass(TooFewRowsError, ModelError)
     True
     """
 

@@ -120,6 +120,19 @@ def test_groups_from_raw_records(tmp_path, capsys):
     assert "2 of 2 groups with an effect" in capsys.readouterr().err
 
 
+def test_records_with_an_empty_group_cell_join_the_missing_group(tmp_path, capsys):
+    # Checks against the design of envlink/effects/groups.py and docs/methods.md: a record
+    # without a group value joins one group flagged missing_group; an empty CSV cell (or
+    # one of blanks) is such a record, not a group with a blank name.
+    rec = _write(tmp_path, {"reef": ["a", "", "a", " ", "b"], "ill": [1, 0, 0, 1, 1]})
+    out = tmp_path / "g.csv"
+    assert main(["effects", str(rec), "--group", "reef", "--kind", "logit_proportion",
+                 "--outcome", "ill", "-o", str(out)]) == 0
+    got = pd.read_csv(out, keep_default_na=False)
+    assert got["reef"].tolist() == ["a", "", "b"] and got["n"].tolist() == [2, 2, 1]
+    assert got["effect_flags"].str.contains("missing_group").tolist() == [False, True, False]
+
+
 @pytest.mark.parametrize("argv,message", [
     (["--kind", "logit_proportion", "--events", "e"], "missing --total"),
     (["--kind", "logit_proportion", "--events", "e", "--total", "n", "--r", "e"],

@@ -308,3 +308,26 @@ def test_quick_benchmark_group_effects_from_parquet() -> None:
     z = res["kinds"]["fisher_z"]
     assert z["spot_check_max_abs_r_diff"] < 1e-12  # numpy.corrcoef of the records
     assert z["envlink_peak_mib"] < 1024
+
+
+@pytest.mark.requires_duckdb
+@pytest.mark.requires_dask
+@pytest.mark.requires_pyarrow
+@pytest.mark.parametrize("engine", ["duckdb", "dask"])
+def test_blank_group_cells_join_the_missing_group_in_memory_and_streamed(tmp_path, monkeypatch, engine) -> None:
+    # Checks against docs/methods.md: records with a missing group value form one group
+    # flagged missing_group; a blank text cell counts as missing, alike in memory and streamed.
+    from envlink.effects import streaming
+
+    rec = pd.DataFrame({"reef": ["a", "", None, "b", "  ", "a", "b", ""],
+                        "ill": [1.0, 0.0, 1.0, 1.0, 1.0, 0.0, 0.0, 1.0]})
+    rec.iloc[:4].to_parquet(tmp_path / "a.parquet")
+    rec.iloc[4:].to_parquet(tmp_path / "b.parquet")
+    if engine == "dask":
+        monkeypatch.setattr(streaming, "summary_duckdb", streaming.summary_dask)
+    want = envlink.group_effects(rec, "reef", "logit_proportion", outcome="ill")
+    assert want["reef"].isna().tolist() == [False, True, False] and want["n"].tolist() == [2, 4, 2]
+    assert want["effect_flags"].str.contains("missing_group").tolist() == [False, True, False]
+    got = envlink.group_effects(tmp_path, "reef", "logit_proportion", outcome="ill")
+    assert got["reef"].isna().tolist() == want["reef"].isna().tolist()
+    _assert_same_table(got.fillna({"reef": "-"}), want.fillna({"reef": "-"}))

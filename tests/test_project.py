@@ -411,6 +411,20 @@ def test_too_few_rows_in_a_tiny_table(tmp_path: Path) -> None:
         run_project(p, progress=False)
 
 
+def test_too_few_rows_is_one_error_class_exit_2_in_a_project(tmp_path: Path, capsys) -> None:
+    # Checks against the exit codes of README.md / docs: too few usable rows is a property
+    # of the data (bad input, exit 2), the same class as envlink fit's (TooFewRowsError).
+    from envlink.errors import ModelError, TooFewRowsError
+
+    p = _project(tmp_path)
+    (tmp_path / "studies.csv").write_text("\n".join(STUDIES.splitlines()[:2]) + "\n")
+    with pytest.raises(TooFewRowsError, match=r"only 1 of 1 rows") as info:
+        run_project(p, progress=False)
+    assert isinstance(info.value, ModelError)
+    assert main(["run", str(p), "--out", str(tmp_path / "o"), "--no-progress"]) == 2
+    assert "error: " in capsys.readouterr().err
+
+
 def test_project_path_that_is_a_folder_or_a_table(tmp_path: Path) -> None:
     p = _project(tmp_path)
     with pytest.raises(InputError, match=r"it is a folder; give the project's \.toml file \(the folder holds p\.toml\)"):

@@ -16,7 +16,8 @@ from envlink.commands.sites import (
     locate_kwargs,
     note_unused_locate_options,
 )
-from envlink.errors import InputError
+from envlink.core.columns import COVARIATE_NAME_RULE, covariate_name_ok
+from envlink.errors import InputError, param_error
 from envlink.extract.rules import SPATIAL_RULES
 from envlink.extract.statistics import STATISTICS
 from envlink.extract.windows import TIME_WEIGHTS, WINDOWS
@@ -41,7 +42,8 @@ options apply to every covariate).
 
 TABLE should hold the columns that 'envlink sites' adds. If it does not, give the
 same column options as 'envlink sites' (--lat/--lon, --coords, --site with
---gazetteer, --period or --start/--end) and the rows are located first."""
+--gazetteer, --period or --start/--end) and the rows are located first; locating
+with no date option warns, as no row then has a period."""
 
 EPILOG = """\
 Statistics, windows and spatial rules are listed in the --stat, --window and --spatial
@@ -92,7 +94,8 @@ def register(subparsers: Any) -> None:
     p.add_argument("--grid", metavar="FILE", required=True, help="the grid: netCDF, Zarr, GeoTIFF or a glob of files")
     p.add_argument("--var", metavar="NAME", help="the grid's variable (needed when the file holds several)")
     add_grid_arguments(p)
-    p.add_argument("--name", metavar="COLUMN", help="name of the new covariate column (one covariate)")
+    p.add_argument("--name", metavar="COLUMN", help="name of the new covariate column (one covariate): letters, digits and _, "
+                        "not starting with a digit")
     p.add_argument("--stat", metavar="STAT",
                    help=f"window statistic: {STATISTICS.help_text()} (default mean)")
     p.add_argument("--window", metavar="WINDOW",
@@ -247,12 +250,16 @@ def covariate_specs(args: argparse.Namespace) -> list[dict[str, Any]]:
             name, eq, rest = text.partition("=")
             if not eq or not name.strip() or not rest.partition("@")[0].strip():
                 raise InputError(f"--covariate {text!r}: write {SPEC_FORM}.")
+            if not covariate_name_ok(name.strip()):
+                raise InputError(f"--covariate {text!r}: the name {name.strip()!r} must be {COVARIATE_NAME_RULE}.")
             stat, _, window = rest.partition("@")
             for reg, value in ((STATISTICS, stat), (WINDOWS, window or "period")):
                 if not reg.accepts(value):
                     raise InputError(f"--covariate {text!r}: {_refusal(reg, value)}")
         covs = parse_covariates(args.covariate, {"stat": "mean", "window": "period"}, "attach")
     elif args.name is not None:
+        if not covariate_name_ok(args.name):
+            raise param_error("name", "attach", COVARIATE_NAME_RULE, args.name)
         covs = [{"name": args.name, "stat": "mean" if args.stat is None else args.stat,
                  "window": "period" if args.window is None else args.window}]
     else:
@@ -312,6 +319,7 @@ def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, 
         from envlink.locate.sites import locate
 
         table = locate(table, progress=progress, **locate_kwargs(args))
+        _warn_without_dates(args)
     else:
         note_unused_locate_options(args, "attach")
     table = located_numbers(table, where=f"Table {str(args.table)!r}")
@@ -324,6 +332,20 @@ def _attach(args: argparse.Namespace, covs: list[dict[str, Any]], spatial: str, 
     write_table(result, out, force=True)
     print(summary(result, [c["name"] for c in covs], str(out)), file=sys.stderr)
     return 0
+
+
+def _warn_without_dates(args: argparse.Namespace) -> None:
+    """Warn when ``attach`` located the table with no date option: no row can get a covariate."""
+    import warnings
+
+    from envlink.errors import TableWarning
+
+    if not any(getattr(args, k, None) for k in ("period", "start", "end")):
+        warnings.warn(
+            "The table was located without a date option, so every row lacks a period (flag no_period) "
+            "and no covariate can be computed; give --period COL, or --start COL --end COL.",
+            TableWarning, stacklevel=2,
+        )
 
 
 #: Python parameter -> option of ``envlink attach``, for messages (envlink.commands.options).

@@ -85,7 +85,8 @@ def register(subparsers: Any) -> None:
         roles.add_argument(f"--{role}", metavar="COL", default=None,
                            help=f"column of {role} (for {', '.join(kinds)})")
     rec = p.add_argument_group("raw records, one effect per group")
-    rec.add_argument("--group", metavar="COL", help="column whose values define the groups")
+    rec.add_argument("--group", metavar="COL", help="column whose values define the groups (records with "
+                     "an empty cell form one group flagged missing_group)")
     rec.add_argument("--outcome", metavar="COL", help="0/1 outcome column (proportion kinds)")
     rec.add_argument("--x", metavar="COL", help="first column of the correlation (fisher_z)")
     rec.add_argument("--y", metavar="COL", help="second column of the correlation (fisher_z)")

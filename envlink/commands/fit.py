@@ -65,8 +65,8 @@ examples:
 
 Exit codes: 0 fitted (read the notes for warnings), 2 bad input (missing column, an
 invalid value such as a zero, negative or infinite variance or an infinite effect,
-a bad formula or option, an output that exists or is TABLE), 1 the model cannot be
-fitted, 128 + N stopped by signal N. Methods: docs/methods.md."""
+a bad formula or option, too few usable rows for the model's coefficients, an output
+that exists or is TABLE), 1 the model cannot be fitted, 128 + N stopped by signal N. Methods: docs/methods.md."""
 
 
 def add_model_options(p: argparse.ArgumentParser, *, project_defaults: bool = False) -> None:

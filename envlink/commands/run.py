@@ -24,7 +24,8 @@ example:
 
 An existing output is not replaced unless --force is given; an interrupted run
 leaves any previous output as it was. Exit codes: 0 done, 2 bad project file or
-input (the message names the key and its line), 1 the run failed."""
+input (the message names the key and its line; too few usable rows to fit the model
+is bad input), 1 the run failed."""
 
 
 def register(subparsers: Any) -> None:

@@ -46,8 +46,8 @@ existing file only with --force; they are written together, atomically. Each
 cell's series is read from the grid once for every window and kept in the
 cell-series store (see 'envlink cache'; --no-cache reads without it).
 
-Exit codes: 0 scanned, 2 bad input (an output that exists or is an input too), 1 the
-model cannot be fitted, 128 + N stopped by signal N. Methods and cautions:
+Exit codes: 0 scanned, 2 bad input (too few usable rows for the coefficients, an
+output that exists or is an input too), 1 the model cannot be fitted, 128 + N stopped by signal N. Methods and cautions:
 docs/inference.md."""
 
 

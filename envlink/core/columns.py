@@ -9,6 +9,8 @@ here.
 
 from __future__ import annotations
 
+import re
+
 __all__ = [
     "LOCATE_COLUMNS",
     "COVARIATE_SUFFIXES",
@@ -18,6 +20,8 @@ __all__ = [
     "KNOWN_COLUMNS",
     "SUFFIX_DESCRIPTIONS",
     "covariate_columns",
+    "COVARIATE_NAME_RULE",
+    "covariate_name_ok",
 ]
 
 #: Columns the locate stage adds, in order.
@@ -33,6 +37,10 @@ LOCATE_COLUMNS = (
     "locate_flags",
     "locate_notes",
 )
+#: What a covariate's name may be, in words: the one rule of the project file, the
+#: command line (--name, --covariate NAME=...) and envlink.attach / attach_many.
+COVARIATE_NAME_RULE = "a column name of letters, digits and '_', not starting with a digit (e.g. 'sst_lag3')"
+_COVARIATE_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 #: Columns added for a covariate named C: C + suffix, in order.
 COVARIATE_SUFFIXES = ("", "_flags", "_cell_lat", "_cell_lon", "_distance_km", "_coverage")
 #: Default names of the effect-size columns.
@@ -78,3 +86,27 @@ def covariate_columns(name: str) -> list[str]:
     ['sst', 'sst_flags', 'sst_cell_lat']
     """
     return [name + s for s in COVARIATE_SUFFIXES]
+
+
+def covariate_name_ok(name: object) -> bool:
+    """Whether ``name`` may name a covariate (:data:`COVARIATE_NAME_RULE`).
+
+    The name becomes a column and a term of a model's moderators, so it is a plain
+    identifier: ASCII letters, digits and ``_``, not starting with a digit.
+
+    Parameters
+    ----------
+    name : object
+        The name given.
+
+    Returns
+    -------
+    bool
+        True when the name follows the rule.
+
+    Examples
+    --------
+    >>> [covariate_name_ok(n) for n in ("sst_lag3", "_x", "bad name", "3m", "sst-mean", "", None)]
+    [True, True, False, False, False, False, False]
+    """
+    return isinstance(name, str) and _COVARIATE_NAME.fullmatch(name) is not None

@@ -121,7 +121,8 @@ def group_effects(
         streamed, never held in memory whole (:mod:`envlink.effects.streaming`).
     group : str
         Column whose values define the groups. Records with a missing group value
-        form one group of their own, flagged ``missing_group``.
+        (or blank text: an empty CSV cell) form one group of their own, flagged
+        ``missing_group``, its group value missing.
     kind : str
         A kind of :data:`~envlink.effects.kinds.EFFECT_KINDS` marked groupwise, in
         any spelling.

@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from envlink.effects.summaries import summarise_records
+from envlink.effects.summaries import group_keys, summarise_records
 from envlink.tables.numeric import parquet_files, parquet_pieces
 
 __all__ = ["stream_summary", "summary_duckdb", "summary_dask", "DUCKDB_MEMORY"]
@@ -65,7 +65,9 @@ def _sql(group: str, cols: list[str], kind_cols: tuple[str, ...], several_files:
         source = ("read_parquet($files, filename = true, file_row_number = true) AS p "
                   "JOIN files ON p.filename = files.fname")
         row = "files.base + file_row_number"
-    return (f"WITH t AS (SELECT {_q(group)} AS g, {values}, {row} AS row FROM {source}) "
+    # blank text names no group: it joins the missing ones (envlink.effects.summaries.group_keys)
+    g = f"CASE WHEN regexp_full_match(CAST({_q(group)} AS VARCHAR), '\\s*') THEN NULL ELSE {_q(group)} END"
+    return (f"WITH t AS (SELECT {g} AS g, {values}, {row} AS row FROM {source}) "
             f"SELECT g, min(row) AS first, count(*) AS records, {aggs} "
             "FROM t GROUP BY g ORDER BY first")
 
@@ -120,6 +122,7 @@ def _read_piece(piece: tuple[str, int, int], columns: list[str], offset: int) ->
     import pyarrow.parquet as pq
 
     df = pq.ParquetFile(piece[0]).read_row_group(piece[1], columns=columns).to_pandas()
+    df[columns[0]] = group_keys(df, columns[0])  # blank groups meet the missing ones in one partition
     df["_row"] = np.arange(offset, offset + len(df), dtype=np.int64)
     return df
 

@@ -18,7 +18,7 @@ from numpy.typing import NDArray
 
 from envlink.tables import parse_numbers, require_columns
 
-__all__ = ["summarise_records", "summary_columns", "PROPORTION", "CORRELATION", "MEANS"]
+__all__ = ["group_keys", "summarise_records", "summary_columns", "PROPORTION", "CORRELATION", "MEANS"]
 
 #: the records' columns (roles) each kind of summary reads, and the columns it adds
 PROPORTION = (("outcome",), ("events",))
@@ -93,6 +93,26 @@ def _binary(records: pd.DataFrame, column: str, values: NDArray[np.float64]) -> 
     return np.where(is_true, 1.0, np.where(is_false, 0.0, values))
 
 
+def group_keys(records: pd.DataFrame, group: str) -> pd.Series:
+    """The group column with blank text (empty or only white space) as missing.
+
+    A blank cell, as a CSV table read as written holds, names no group: it joins the
+    records with a missing group (flag ``missing_group``) rather than forming a group
+    with a blank name. The Parquet engines of :mod:`envlink.effects.streaming` read it alike.
+
+    Examples
+    --------
+    >>> group_keys(pd.DataFrame({"g": ["a", "", " ", "b"]}), "g").tolist()
+    ['a', nan, nan, 'b']
+    """
+    keys = records[group]
+    if keys.dtype == object or isinstance(keys.dtype, pd.StringDtype | pd.CategoricalDtype):
+        blank = keys.astype(object).map(lambda v: isinstance(v, str) and not v.strip()).astype(bool)
+        if blank.any():
+            keys = keys.astype(object).where(~blank.to_numpy(), np.nan)
+    return keys
+
+
 def summarise_records(records: pd.DataFrame, group: str, cols: list[str],
                       kind_cols: tuple[str, ...], arms: tuple[Any, Any] | None
                       ) -> tuple[pd.Index, dict[str, NDArray[Any]]]:
@@ -100,7 +120,7 @@ def summarise_records(records: pd.DataFrame, group: str, cols: list[str],
     ``non_binary`` (outcomes), and ``events`` / ``r`` and ``constant`` / the arms' sizes,
     means and SDs."""
     require_columns(records, [group, *cols], what="records table")
-    codes, uniques = pd.factorize(records[group], use_na_sentinel=False)
+    codes, uniques = pd.factorize(group_keys(records, group), use_na_sentinel=False)
     values: list[NDArray[Any]] = [parse_numbers(records[c])[0] for c in cols]
     non_binary = None
     if kind_cols == PROPORTION[0]:

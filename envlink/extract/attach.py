@@ -67,7 +67,8 @@ def attach(
         A normalised grid (see :mod:`envlink.testing`), e.g. from
         :func:`envlink.open_grid`; may be lazy (dask or file-backed).
     name : str
-        The covariate's column name C.
+        The covariate's column name C: letters, digits and ``_``, not starting with a
+        digit (:data:`envlink.core.columns.COVARIATE_NAME_RULE`, as in a project file).
     stat : str, default "mean"
         A statistic of :data:`envlink.extract.statistics.STATISTICS` (``mean``,
         ``quantile:0.9``, ``above:29``, ``anomaly``, ``dhw-max`` ...).

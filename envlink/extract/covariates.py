@@ -15,7 +15,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from envlink.core.columns import COVARIATE_SUFFIXES
+from envlink.core.columns import COVARIATE_NAME_RULE, COVARIATE_SUFFIXES, covariate_name_ok
 from envlink.errors import InputError, param_error
 
 __all__ = ["COVARIATE_OPTIONS", "parse_covariate", "parse_covariates", "SPEC_FORM"]
@@ -113,8 +113,8 @@ def parse_covariates(specs: Sequence[str | Mapping[str, Any]] | str | Mapping[st
     seen: dict[str, str] = {}
     for cov in out:
         name = cov["name"]
-        if not isinstance(name, str) or not name.strip():
-            raise param_error("name", caller, "a non-empty column name", name)
+        if not covariate_name_ok(name):
+            raise param_error("name", caller, COVARIATE_NAME_RULE, name)
         for col in (name + s for s in COVARIATE_SUFFIXES):
             if col in seen:
                 raise InputError(f"Two covariates would both write the column {col!r}; give each covariate "

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from envlink.core.columns import COVARIATE_SUFFIXES
+from envlink.core.columns import COVARIATE_NAME_RULE, COVARIATE_SUFFIXES, covariate_name_ok
 from envlink.core.flags import RowFlags
 from envlink.core.registry import Choice
 from envlink.core.versions import software_versions
@@ -129,8 +129,8 @@ def validate(table: pd.DataFrame, grid: xr.DataArray, name: str, *, stat: Any, w
     if not isinstance(grid, xr.DataArray):
         raise param_error("grid", CALLER, "an xarray.DataArray in envlink's normalised form (envlink.open_grid)",
                           type(grid).__name__)
-    if not isinstance(name, str) or not name.strip():
-        raise param_error("name", CALLER, "a non-empty column name", name)
+    if not covariate_name_ok(name):
+        raise param_error("name", CALLER, COVARIATE_NAME_RULE, name)
     clash = [name + s for s in COVARIATE_SUFFIXES if name + s in table.columns]
     if clash:
         raise InputError(f"The table already has column {clash[0]!r}; choose another --name so no input column "

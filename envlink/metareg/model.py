@@ -24,6 +24,7 @@ from envlink.errors import (
     MetaRegressionWarning,
     ModelError,
     NotFittedError,
+    TooFewRowsError,
     param_error,
     user_stacklevel,
 )
@@ -255,7 +256,7 @@ class MetaRegression:
         if p == 0:
             raise ModelError("The model has no coefficients: keep the intercept or add moderators.")
         if k <= p:
-            raise ModelError(
+            raise TooFewRowsError(
                 f"Only k = {k} usable effects for p = {p} coefficients; a meta-regression "
                 f"needs more effects than coefficients (k > p). Use fewer moderators."
             )

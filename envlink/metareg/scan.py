@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from envlink.errors import InputError, ModelError, param_error
+from envlink.errors import InputError, ModelError, TooFewRowsError, param_error
 from envlink.metareg.design import design_from_frame
 from envlink.metareg.frame import model_frame
 from envlink.metareg.scan_core import ScanModel, fit_windows, permutation_maxima
@@ -252,7 +252,7 @@ def scan_windows(data: pd.DataFrame, candidates: pd.DataFrame, *, effect: str = 
     y, v, Xf = d.dense()
     codes = pd.factorize(np.asarray(d.groups["nested"]))[0] if nested is not None else None
     if d.k <= Xf.shape[1] + 1:
-        raise ModelError(f"Only k = {d.k} usable rows for {Xf.shape[1] + 1} coefficients per "
+        raise TooFewRowsError(f"Only k = {d.k} usable rows for {Xf.shape[1] + 1} coefficients per "
                          "window; a scan needs more rows than coefficients.")
     cols = cands.to_numpy(dtype=np.float64)[frame.included]
     cols[~np.isfinite(cols)] = np.nan

@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from envlink.errors import InputError, ModelError
+from envlink.errors import InputError, ModelError, TooFewRowsError
 from envlink.project.schema import where
 
 __all__ = ["fit_model"]
@@ -44,7 +44,7 @@ def _frame(project: Any, table: pd.DataFrame, effect: str, variance: str) -> Any
         raise ModelError(f"{where(project, 'model')}: {exc}") from exc
 
 
-def _too_few(project: Any, table: pd.DataFrame, frame: Any) -> InputError:
+def _too_few(project: Any, table: pd.DataFrame, frame: Any) -> TooFewRowsError:
     """The message when fewer than 3 rows can enter the fit: what each row lacks."""
     ok = frame.included
     counts = ", ".join(f"{what if what == 'rejected by locate' else repr(what)} {int(n.sum())}"
@@ -57,7 +57,7 @@ def _too_few(project: Any, table: pd.DataFrame, frame: Any) -> InputError:
             if len(common):
                 hint = f" Most rows lacking {col!r} are flagged {common.index[0]!r} (see {flags})."
                 break
-    return InputError(
+    return TooFewRowsError(
         f"{where(project, 'model')}: only {int(ok.sum())} of {len(table)} rows have a finite "
         f"effect, a positive variance and every moderator ({', '.join(frame.columns)}); the model "
         f"needs at least 3. "
@@ -85,7 +85,8 @@ def fit_model(project: Any, table: pd.DataFrame, effect: str, variance: str) -> 
         fit = reg.fit(frame.data.reset_index(drop=True), effect=effect, variance=variance)
     except InputError as exc:
         key = "moderators" if formula else None
-        raise InputError(f"{where(project, 'model', *([key] if key else []))}: {exc}") from exc
+        cls = TooFewRowsError if isinstance(exc, TooFewRowsError) else InputError
+        raise cls(f"{where(project, 'model', *([key] if key else []))}: {exc}") from exc
     used = frame.data
     egger = envlink.egger_test(used[effect].to_numpy(np.float64), used[variance].to_numpy(np.float64))
     return fit, frame.included, egger

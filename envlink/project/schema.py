@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from envlink.core.calendars import CF_CALENDARS
+from envlink.core.columns import COVARIATE_NAME_RULE, covariate_name_ok
 from envlink.core.util import did_you_mean
 from envlink.effects.core import ZERO_CELL_RULES
 from envlink.effects.kinds import EFFECT_KINDS
@@ -44,7 +45,6 @@ STATS = _STATISTICS.allowed()
 WINDOWS = _WINDOWS.allowed()
 SPATIAL_RULES = _SPATIAL_RULES.allowed()
 _BASELINE_RE = re.compile(r"^[0-9]{4}-[0-9]{4}$")
-_IDENT_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 
 
 def _formats_problem(value: list[str]) -> str:
@@ -101,8 +101,7 @@ SECTIONS: dict[str, dict[str, KeySpec]] = {
         "calendar": KeySpec("str", _words(CF_CALENDARS), check=lambda v: v.strip().lower() in CF_CALENDARS),
     },
     "covariates[]": {
-        "name": KeySpec("str", "a new column name (letters, digits, _)", required=True,
-                        check=lambda v: bool(_IDENT_RE.match(v))),
+        "name": KeySpec("str", COVARIATE_NAME_RULE, required=True, check=covariate_name_ok),
         "grid": KeySpec("str", "the name of a [grids.NAME] table", required=True),
         "stat": KeySpec("str", _STATISTICS.allowed, check=_STATISTICS.accepts),
         "window": KeySpec("str", _WINDOWS.allowed, check=_WINDOWS.accepts),

@@ -131,7 +131,7 @@ def fits() -> list[Case]:
         ("x ** ", 2, ()), ("(x", 2, ()), ("x + + zone", 0, ()), ("`my x`", 0, ()), ("`depth.m`", 0, ()),
         ("xs", 0, ()), ("bs(x, df=3)", 0, ()), ("bs(xs, df=3)", 0, ()), ("C(zone)", 0, ()),
         ("I(x / 0)", 2, ("row 1\\b",)), ("`word x`", 2, ("'word x'", "row 1\\b", r"C\(`word x`\)")),
-        ("C(`my x`)", 1, ()), ("x + I(2 * x)", 1, (r"I\(2 \* x\)",)), ("one", 0, ()),
+        ("C(`my x`)", 2, ("k = 10", "p = 10")), ("x + I(2 * x)", 1, (r"I\(2 \* x\)",)), ("one", 0, ()),
         ("C(one)", 0, ()), ("x:zone + x", 0, ()),
     ]
     for n, (formula, rc, messages) in enumerate(formulas):
@@ -150,7 +150,8 @@ def fits() -> list[Case]:
         _f("fit-method", base, 2, ("--method",), extra=("--method", "REMLX")),
         _f("fit-test", base, 2, ("--test",), extra=("--test", "tee")),
         _f("fit-tau2", base, 2, ("--tau2",), extra=("--tau2", "-1")),
-        _f("fit-all-effects-blank", [[r[0], "", *r[2:]] for r in base], 1, ()),
+        # too few usable rows is bad input (TooFewRowsError, docs/methods.md): exit 2
+        _f("fit-all-effects-blank", [[r[0], "", *r[2:]] for r in base], 2, ("k = 0",)),
     ]
     c[-7] = Case(c[-7].id, "fits", ("fit", "t.csv", "--effect", "nope", "--variance", "es_var"), c[-7].files, 2,
                  ("'nope'",), table="t.csv", unchanged=("t.csv",))

@@ -301,3 +301,24 @@ def test_attach_grid_with_empty_time_axis_exits_2_naming_it(files, capsys):
     err = capsys.readouterr().err
     assert "emptytime.nc" in err and "has no steps" in err and "unexpected error" not in err
     assert not (files / "o.csv").exists()
+
+
+def test_attach_locating_without_a_date_option_warns(files, capsys):
+    # Checks against common practice: an option left out that leaves every row without a
+    # value is said on stderr (docs/extract.md: rows without a period are flagged no_period).
+    from envlink.errors import TableWarning
+
+    out = files / "o.csv"
+    with warnings.catch_warnings():
+        warnings.simplefilter("always", TableWarning)
+        rc = main(["attach", str(files / "raw.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+                   "--lat", "la", "--lon", "lo", "-o", str(out)])
+    assert rc == 0
+    err = capsys.readouterr().err
+    assert "envlink attach: warning:" in err
+    assert "--period COL, or --start COL --end COL" in err
+    assert len(pd.read_csv(out)) == 2
+    rc = main(["attach", str(files / "raw.csv"), "--grid", str(files / "g.nc"), "--name", "sst",
+               "--lat", "la", "--lon", "lo", "--period", "when", "-o", str(out), "--force"])
+    assert rc == 0
+    assert "--period COL" not in capsys.readouterr().err

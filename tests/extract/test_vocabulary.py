@@ -211,3 +211,48 @@ def test_help_and_messages_come_from_the_registries(capsys: pytest.CaptureFixtur
     assert (keys["stat"].allowed, keys["window"].allowed, keys["spatial"].allowed, keys["time_weights"].allowed) == (
         STATISTICS.allowed(), WINDOWS.allowed(), SPATIAL_RULES.allowed(), TIME_WEIGHTS.allowed())
 
+
+
+# Covariate names: one rule (envlink.core.columns.COVARIATE_NAME_RULE, the rule the
+# project file always had, docs/project-file.md) for the API, the command line and a
+# project file; a name becomes a column and a term of a model's moderators.
+NAMES = [("sst", True), ("sst_lag3", True), ("_x", True), ("SST2", True), ("bad name", False),
+         ("sst-mean", False), ("3m", False), ("sst.mean", False), ("sst\n", False), ("", False)]
+
+
+@pytest.mark.parametrize(("name", "accepted"), NAMES)
+def test_covariate_names_accepted_and_refused_alike(files: Path, grid: xr.DataArray, tmp_path: Path, name: str,
+                                                    accepted: bool, capsys: pytest.CaptureFixture[str]) -> None:
+    table = pd.read_csv(files / "located.csv")
+    api = []
+    for call in (lambda: envlink.attach(table, grid, name=name),
+                 lambda: envlink.attach_many(table, grid, [{"name": name, "stat": "mean"}]),
+                 lambda: envlink.attach_many(table, grid, [f"{name}=mean"])):
+        try:
+            call()
+            api.append(True)
+        except InputError:
+            api.append(False)
+    base = ["attach", str(files / "located.csv"), "--grid", str(files / "daily.nc"), "-o", str(tmp_path / "o.csv"),
+            "--force", "--no-cache"]
+    rcs = [main([*base, "--name", name]), main([*base, "--covariate", f"{name}=mean"])]
+    err = capsys.readouterr().err
+    path = tmp_path / "p.toml"
+    path.write_text(_project_text([{"name": name, "grid": "sst"}]), encoding="utf-8")
+    for f in ("studies.csv", "daily.nc"):
+        (tmp_path / f).symlink_to(files / f)
+    try:
+        envlink.load_project(path)
+        in_project = True
+    except InputError:
+        in_project = False
+    want = 0 if accepted else 2
+    # text form strips the blanks around a name (docs/extract.md), so "sst\n=mean" is "sst"
+    text_form = accepted or name == "sst\n"
+    assert (api, rcs, in_project) == ([accepted, accepted, text_form], [want, 0 if text_form else 2], accepted), err
+    if not accepted:
+        assert "letters, digits and '_'" in err
+    if not text_form and name:  # envlink impute reads --covariate as attach does
+        assert main(["impute", str(files / "located.csv"), "--grid", str(files / "daily.nc"), "--covariate",
+                     f"{name}=mean", "--effect", "e", "--variance", "v"]) == 2
+        assert "letters, digits and '_'" in capsys.readouterr().err

@@ -189,6 +189,25 @@ def test_fit_bad_input_exit_codes(bcg_csv, capsys):
     assert main(["fit", str(bcg_csv), "--effect", "es", "--variance", "es_var", "--method", "XX"]) == 2
 
 
+def test_too_few_usable_rows_is_bad_input_exit_2(bcg_csv, tmp_path, capsys):
+    # Checks against the exit codes of `envlink fit --help` and README.md: too few usable
+    # rows for the model is a property of the data (bad input, exit 2), as in a project
+    # run (tests/test_project.py); the API raises TooFewRowsError, also a ModelError.
+    from envlink.errors import InputError, ModelError, TooFewRowsError
+
+    two = tmp_path / "two.csv"
+    pd.read_csv(bcg_csv).iloc[:2].to_csv(two, index=False)
+    assert main(["fit", str(two), "--effect", "es", "--variance", "es_var", "--moderators", "latitude_abs"]) == 2
+    err = capsys.readouterr().err
+    assert "envlink fit: error: Only k = 2 usable effects for p = 2 coefficients" in err
+    one = tmp_path / "one.csv"
+    pd.read_csv(bcg_csv).iloc[:1].to_csv(one, index=False)
+    assert main(["fit", str(one), "--effect", "es", "--variance", "es_var"]) == 2
+    with pytest.raises(TooFewRowsError) as info:
+        MetaRegression().fit(pd.read_csv(one), effect="es", variance="es_var")
+    assert isinstance(info.value, ModelError) and isinstance(info.value, InputError)
+
+
 def _text_copy(path, cells=None):
     """The BCG table as a semicolon CSV, with latitude_abs written with decimal commas
     (common practice in European spreadsheets) and selected cells overwritten."""
