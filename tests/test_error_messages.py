@@ -224,7 +224,37 @@ def test_cli_parameter_error_names_the_option(cli_files, capsys) -> None:
     rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "g.nc", "--name", "x",
                    "--min-coverage", "2", "-o", f / "o.csv")
     assert rc == 2
-    assert "The 'min_coverage' parameter of attach (option --min-coverage) must be a fraction from 0 to 1; got 2.0." in err
+    # common practice: the command line names its option, not the Python parameter or function
+    assert "The option --min-coverage must be a fraction from 0 to 1; got 2.0." in err
+    assert "min_coverage" not in err and "parameter of" not in err
+
+
+def test_scan_messages_name_options_not_python_functions(cli_files, capsys) -> None:
+    # common practice: a command-line message names the command's options; the Python
+    # functions behind it (scan_windows, MetaRegression, attach, scan) stay unnamed
+    f = cli_files
+    rows = pd.DataFrame({"id": range(1, 7), "site_lat": 1.2, "site_lon": 10.7,
+                         "period_start": [f"2000-{m:02d}-01" for m in range(3, 9)],
+                         "period_end": [f"2000-{m:02d}-28" for m in range(3, 9)],
+                         "es": [0.1, 0.3, 0.2, 0.5, 0.4, 0.6], "v": 0.05, "study": list("aabbcc")})
+    rows.to_csv(f / "eff.csv", index=False)
+    base = ["scan", f / "eff.csv", "--grid", f / "g.nc", "--effect", "es", "--variance", "v", "--unit", "M",
+            "--lags", "0..1", "--spans", "1..2", "--permutations", "9", "--no-progress", "--no-cache"]
+    cases = [
+        (["--method", "PM"], "The option --method must be 'REML', 'ML' or 'DL' ('REML' or 'ML' with --nested)"),
+        (["--method", "HS"], "The option --method must be one of 'REML', 'ML', 'DL'"),
+        (["--unit", "Q"], "The option --unit must be 'D' (days) or 'M' (whole months); got 'Q'."),
+        (["--stat", "avg"], "The option --stat must be one of 'mean'"),
+        (["--min-coverage", "2"], "The option --min-coverage must be a fraction from 0 to 1; got 2.0."),
+        (["--mmm", "30"], "The option --mmm must be given only with --stat dhw-max"),
+        (["--permute", "within"], "fit the model with --nested COLUMN, or use --permute rows."),
+        (["--effect", "ess"], "--effect: The table has no column 'ess'. Did you mean 'es'?"),
+    ]
+    for extra, message in cases:
+        rc, err = _cli(capsys, *base, *extra)
+        assert rc == 2 and message in err, (extra, err)
+        for python_name in ("scan_windows", "MetaRegression", "parameter of", "nested=", "stat="):
+            assert python_name not in err, (extra, err)
 
 
 def test_cli_parameter_mentions_are_written_as_options(cli_files, capsys) -> None:
@@ -232,7 +262,7 @@ def test_cli_parameter_mentions_are_written_as_options(cli_files, capsys) -> Non
     rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "g.nc", "--name", "x",
                    "--mmm", "28", "-o", f / "o.csv")
     # the library says "given only with stat='dhw-max'"; the command line says --stat dhw-max
-    assert rc == 2 and "(option --mmm) must be given only with --stat dhw-max; got 28.0." in err
+    assert rc == 2 and "The option --mmm must be given only with --stat dhw-max; got 28.0." in err
     rc, err = _cli(capsys, "grid", f / "two.nc")
     assert rc == 2 and "holds several gridded variables: sst, air. Choose one with --var NAME." in err
     rc, err = _cli(capsys, "attach", f / "located.csv", "--grid", f / "two.nc", "--name", "x", "-o", f / "o.csv")

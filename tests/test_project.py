@@ -501,3 +501,26 @@ def test_missing_mmm_climatology_file_is_found_at_the_start(tmp_path: Path) -> N
     with pytest.raises(InputError, match=rf"line {_line_of(text, 'mmm = ')}: the key 'covariates\[0\]\.mmm' "
                                          r"names .*clim\.nc', which does not exist"):
         run_project(p, progress=False)
+
+
+def test_effects_roles_and_options_are_named_as_project_keys(tmp_path: Path) -> None:
+    # common practice: a project-file message names the key and its line, not the Python call
+    # (effect_sizes' keyword names stay in the Python API's own messages)
+    text = BASE.replace('events = "sick"', 'evnts = "sick"')
+    p = _project(tmp_path, text)
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'evnts')}: \[effects\.columns\] has the role "
+                                         r"'evnts', which kind 'logit_proportion' does not read\. Did you mean "
+                                         r"'events'\?") as info:
+        run_project(p, progress=False)
+    assert "effect_sizes" not in str(info.value) and "keyword" not in str(info.value)
+    text = BASE.replace('events = "sick"\n', "")
+    with pytest.raises(InputError, match=rf"line {_line_of(text, '[effects.columns]')}: \[effects\.columns\] "
+                                         r"lacks the role\(s\) events that kind 'logit_proportion' needs"):
+        run_project(_project(tmp_path, text), progress=False)
+    text = BASE.replace('kind = "logit_proportion"', 'kind = "logit_proportion"\nexact = true')
+    with pytest.raises(InputError, match=rf"line {_line_of(text, 'exact')}: the key 'effects\.exact' does not "
+                                         r"apply to kind 'logit_proportion'; it takes 'correction', 'zero_cells'"):
+        run_project(_project(tmp_path, text), progress=False)
+    # the Python API keeps its own wording
+    with pytest.raises(InputError, match=r"effect_sizes\(kind='logit_proportion'\) takes the column keywords"):
+        envlink.effect_sizes(pd.DataFrame({"k": [1], "n": [2]}), "logit_proportion", evnts="k", total="n")

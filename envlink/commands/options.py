@@ -24,7 +24,7 @@ __all__ = ["ParamOptions", "option_names", "command_line_text", "command_line_me
 ParamOptions: TypeAlias = Mapping[str, "str | Mapping[Any, str]"]
 
 # a Python literal after ``param=``: True / False / None, a quoted text, a number
-_VALUE = r"""(?P<value>True|False|None|'[^'\n]*'|"[^"\n]*"|-?\d+(?:\.\d+)?)?"""
+_VALUE = r"""(?P<value>True|False|None|'[^'\n]*'|"[^"\n]*"|-?\d+(?:\.\d+)?|[A-Z][A-Z_]*(?![\w(]))?"""
 # a mention ends where the literal ends; a list, call or dict value is left alone
 _END = r"(?![\w\[\(\{'\"])"
 _BARE = object()
@@ -88,6 +88,8 @@ def command_line_text(text: str, options: ParamOptions) -> str:
     'give --dayfirst or --monthfirst'
     >>> command_line_text("name it with time='NAME', or open it with time=False.", opts)
     'name it with --time NAME, or open it with --static.'
+    >>> command_line_text("fit the model with variable=NAME first.", opts)
+    'fit the model with --var NAME first.'
     >>> command_line_text("choose with variable='NAME' (--var NAME on the command line)", opts)
     "choose with variable='NAME' (--var NAME on the command line)"
     """
@@ -100,14 +102,18 @@ def command_line_text(text: str, options: ParamOptions) -> str:
 
 
 def command_line_message(exc: BaseException, options: ParamOptions) -> str:
-    """The text of ``exc`` for the command line: its parameter's option added, mentions translated.
+    """The text of ``exc`` for the command line: its parameter named as its option, mentions translated.
+
+    A parameter error (``The 'spatial' parameter of attach ...``) names the option in
+    place of the Python parameter and function; another message about a parameter gets
+    the option added at its end.
 
     Examples
     --------
     >>> from envlink.errors import param_error
     >>> err = param_error("spatial", "attach", "one of 'nearest', 'bilinear'", "x")
     >>> command_line_message(err, {"spatial": "--spatial"})
-    "The 'spatial' parameter of attach (option --spatial) must be one of 'nearest', 'bilinear'; got 'x'."
+    "The option --spatial must be one of 'nearest', 'bilinear'; got 'x'."
     """
     text = command_line_text(str(exc), options)
     param = getattr(exc, "param", None)
@@ -118,7 +124,8 @@ def command_line_message(exc: BaseException, options: ParamOptions) -> str:
         return text
     names = option_names(spec)
     label = ("option " if len(names) == 1 else "options ") + " or ".join(names)
-    head = re.compile(rf"^The {re.escape(repr(param))} parameter of [\w.]+")
+    # the Python function and parameter give way to the option (the command is named before)
+    head = re.compile(rf"^The {re.escape(repr(param))} parameter of [\w.]+(\([^()]*\))?")
     if head.search(text):
-        return head.sub(lambda m: f"{m.group(0)} ({label})", text, count=1)
+        return head.sub(f"The {label}", text, count=1)
     return f"{text} (command-line {label})"

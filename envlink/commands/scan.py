@@ -201,6 +201,7 @@ PARAM_OPTIONS = {
     "effect": "--effect", "variance": "--variance", "moderators": "--moderators",
     "nested": "--nested", "method": "--method", "test": "--test", "lags": "--lags",
     "spans": "--spans", "unit": "--unit", "anchors": "--anchor", "stats": "--stat",
+    "stat": "--stat", "anchor": "--anchor",
     "n_permutations": "--permutations", "seed": "--seed", "scheme": "--permute",
     "spatial": "--spatial", "baseline": "--baseline", "mmm": "--mmm",
     "min_coverage": "--min-coverage", "variable": "--var", "force": "--force",

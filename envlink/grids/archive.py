@@ -11,7 +11,8 @@ are put on one time axis and decoded together; faults are reported, never merged
 - two files holding the same time stamp (or the same time cell): :class:`GridError`
   naming both; files whose times overlap: the same;
 - a file on another grid, with another variable, dtype or packing: :class:`GridError`
-  naming the file and what differs; a truncated or unreadable file: the same (at
+  naming the file and what differs; a file with no time step (a time axis of length
+  0): the same; a truncated or unreadable file: the same (at
   opening when the cheap check sees it, else when its values are read);
 - file names out of time order: the files are sorted by time, with a note;
 - a gap in the time axis (a missing day): a :class:`GridWarning` and a note, and the
@@ -75,6 +76,10 @@ def _common_units(files: list[FileTimes], paths: list[Path]) -> tuple[np.ndarray
     units, cal = files[0].units, files[0].calendar
     values, bounds = [], []
     for f, p in zip(files, paths, strict=True):
+        if f.values.size == 0:  # as a single file with no steps: a faulty file, named
+            raise GridError(f"The file {str(p)!r} has no time steps (its time axis has length 0), so it "
+                            "holds no data. Check the file (it may have been written before any step was "
+                            "added), or leave it out of the archive's files.")
         if (f.calendar or "standard") != (cal or "standard"):
             raise GridError(f"The file {str(p)!r} has calendar {f.calendar!r} but {str(paths[0])!r} has {cal!r}; "
                             "files combined along time must share one calendar.")

@@ -31,6 +31,10 @@ __all__ = ["read_geotiff", "project_sites", "band_times", "BAND_DATES_FORMS"]
 _DATE = r"(-?\d{4})-(\d{2})-(\d{2})(?:[T ](\d{2}):(\d{2})(?::(\d{2}))?)?"
 _DATE_RE = re.compile(rf"^{_DATE}$")
 _REPEAT_RE = re.compile(rf"^R(\d*)/{_DATE}/P(\d+)([YMWD])$", re.IGNORECASE)
+# the shape of a repeating interval (``R[n]/...``), read before its parts are checked
+_REPEAT_SHAPE_RE = re.compile(r"^R\d*/", re.IGNORECASE)
+# any ISO 8601 duration (PnYnMnWnDTnHnMnS), of which the reader takes one unit of Y, M, W or D
+_ISO_DURATION_RE = re.compile(r"^P(\d+Y)?(\d+M)?(\d+W)?(\d+D)?(T(\d+H)?(\d+M)?(\d+(\.\d+)?S)?)?$", re.I)
 #: The calendar of band dates when none is given.
 DEFAULT_CALENDAR = "proleptic_gregorian"
 TIME_UNITS = "days since 1970-01-01"
@@ -74,6 +78,25 @@ def _day_numbers(dates: Sequence[tuple[int, ...]], calendar: str, band0: int = 1
                 f"band_dates: band {band0 + i}'s date {day} is not a day of the {calendar} calendar."
             ) from None
     return np.asarray(cftime.date2num(stamps, TIME_UNITS, calendar=calendar), dtype=np.float64).reshape(-1)
+
+
+def _repeat_error(text: str) -> InputError:
+    """Why ``text``, shaped ``R[n]/...``, is not a repeating interval this reader takes."""
+    parts = text.split("/")
+    example = "e.g. 'R/2010-01-01/P1M' (one band per month from January 2010)"
+    if len(parts) != 3:
+        return InputError(
+            f"band_dates {text!r} is not an ISO 8601 repeating interval: expected three parts "
+            f"R[n]/START/DURATION separated by '/', {example}.", param="band_dates")
+    if not _DATE_RE.match(parts[1]):
+        return InputError(
+            f"band_dates {text!r}: the start {parts[1]!r} is not an ISO 8601 date; expected "
+            f"YYYY-MM-DD (or YYYY-MM-DDTHH:MM), {example}.", param="band_dates")
+    iso = _ISO_DURATION_RE.match(parts[2]) and parts[2].upper() not in ("P", "PT")
+    what = "an ISO 8601 duration this reader does not take" if iso else "not an ISO 8601 duration"
+    return InputError(
+        f"band_dates {text!r}: the duration {parts[2]!r} is {what}; expected P<n>Y, P<n>M, "
+        f"P<n>W or P<n>D (years, months, weeks or days), {example}.", param="band_dates")
 
 
 def _repeating(m: re.Match[str], n_bands: int, calendar: str) -> np.ndarray:
@@ -130,6 +153,8 @@ def band_times(band_dates: str | Sequence[Any], n_bands: int, calendar: str | No
         if m := _REPEAT_RE.match(text):
             edges = _repeating(m, n_bands, cal)
             return edges[:-1].copy(), np.column_stack([edges[:-1], edges[1:]])
+        if _REPEAT_SHAPE_RE.match(text):
+            raise _repeat_error(text)
         items: list[Any] = [
             tuple(part.split("/")) if "/" in part else part for part in (p.strip() for p in text.split(",")) if part
         ]

@@ -308,7 +308,7 @@ def read_model_columns(table: pd.DataFrame, *, effect: str, variance: str,
     >>> d["e"].tolist(), d["zone"].tolist()
     ([0.5, 1.5], ['reef', None])
     """
-    from envlink.tables import label_text, number_columns
+    from envlink.tables import label_text, number_columns, require_columns
 
     w = dict(where) if isinstance(where, Mapping) else dict.fromkeys(
         ("effect", "variance", "moderators"), where)
@@ -316,6 +316,10 @@ def read_model_columns(table: pd.DataFrame, *, effect: str, variance: str,
     labels = [c for c in (nested, cluster) if c]
     numbers: dict[str, np.ndarray] = {}
     for col, role in ((effect, "effect"), (variance, "variance")):
+        try:
+            require_columns(table, [col])
+        except InputError as exc:  # the option or key that names the column goes first
+            raise InputError(f"{w[role]}: {exc}" if w.get(role) else str(exc)) from None
         numbers.update(number_columns(table, [col], numbers=[col], where=w.get(role, "")))
     categories = category_columns(moderators, variables)
     plain = [c for c in variables if c in table.columns and c not in categories and c not in labels

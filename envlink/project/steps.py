@@ -16,7 +16,7 @@ import pandas as pd
 from envlink.core.columns import COVARIATE_SUFFIXES as SUFFIXES
 from envlink.core.outputs import check_output_paths
 from envlink.core.progress import progress_bar
-from envlink.core.util import probe_writable
+from envlink.core.util import did_you_mean, probe_writable
 from envlink.effects.core import ZERO_CELL_RULES
 from envlink.effects.kinds import EFFECT_KINDS, OPTIONS
 from envlink.errors import GridError, InputError
@@ -43,6 +43,7 @@ __all__ = [
     "grid_options",
     "effect_settings",
     "add_effects",
+    "check_effect_keys",
     "render_html",
 ]
 
@@ -118,6 +119,7 @@ def read_studies(project: Project) -> tuple[pd.DataFrame, list[str]]:
 
     table = read_table_as_written(project.studies)
     input_columns = [str(c) for c in table.columns]
+    check_effect_keys(project)
     check_columns(project, table)
     try:
         check_columns_exportable(input_columns, project.section("export").get("formats", DEFAULT_FORMATS))
@@ -252,12 +254,41 @@ def effect_settings(project: Project) -> dict[str, Any]:
     return eff
 
 
+def check_effect_keys(project: Project) -> None:
+    """The [effects] options and column roles fit the kind; a message names the key and its line."""
+    eff = effect_settings(project)
+    if "kind" not in eff:
+        return
+    kind, columns = eff["kind"], eff.get("columns", {})
+    options = [k for k in OPTIONS if k in eff]
+    info = EFFECT_KINDS[kind].info
+    roles, takes = info["roles"], info["options"]
+    for key in options:
+        if key not in takes:
+            allowed = f"it takes {', '.join(repr(t) for t in takes)}" if takes else "it takes no options"
+            raise InputError(f"{where(project, 'effects', key)}: the key 'effects.{key}' does not apply "
+                             f"to kind {kind!r}; {allowed}. Remove it.")
+    example = ", ".join(f"{r} = '<column>'" for r in roles)
+    for role in columns:
+        if role not in roles:
+            raise InputError(
+                f"{where(project, 'effects', 'columns', role)}: [effects.columns] has the role {role!r}, "
+                f"which kind {kind!r} does not read.{did_you_mean(role, roles)} Its roles are "
+                f"{', '.join(roles)}; e.g. [effects.columns] {example}.")
+    lacking = [r for r in roles if r not in columns]
+    if lacking:
+        raise InputError(
+            f"{where(project, 'effects', 'columns')}: [effects.columns] lacks the role(s) "
+            f"{', '.join(lacking)} that kind {kind!r} needs; e.g. [effects.columns] {example}.")
+
+
 def add_effects(project: Project, table: pd.DataFrame, effect: str, variance: str) -> pd.DataFrame:
     """The [effects] step: the table with the effect, variance and flag columns added."""
     import envlink
 
     eff = effect_settings(project)
-    extra = {k: eff[k] for k in OPTIONS if k in eff}  # effect_sizes refuses those the kind does not take
+    extra = {k: eff[k] for k in OPTIONS if k in eff}
+    check_effect_keys(project)  # the messages name keys; effect_sizes's would name its parameters
     try:
         return envlink.effect_sizes(table, eff["kind"], name=effect, variance_name=variance,
                                     **extra, **eff.get("columns", {}))  # fmt: skip

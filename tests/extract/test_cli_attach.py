@@ -104,7 +104,7 @@ def test_attach_dhw_beside_other_covariates_takes_mmm(files, capsys):
 @pytest.mark.parametrize(
     "extra, message",
     [
-        (["--stat", "avg"], "The 'stat' parameter of attach (option --stat) must be"),
+        (["--stat", "avg"], "The option --stat must be"),
         (["--spatial", "nearest-valid:abc"], "'nearest-valid:Dkm' with D a positive distance in km"),
         (["--mmm", "nowhere.nc", "--stat", "dhw-max"], "--mmm 'nowhere.nc' is neither a number"),
     ],

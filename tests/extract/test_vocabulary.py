@@ -180,9 +180,9 @@ def test_api_cli_and_project_accept_and_refuse_alike(files: Path, grid: xr.DataA
         assert label == VOCABULARIES[param][0][text]
         assert [p[param] for p in spy] == [label]  # the command line recorded the same label
     else:
-        # the command line names the option beside the Python parameter
+        # the command line names the option in place of the Python parameter
         option = "--" + param.replace("_", "-")
-        assert f"The {param!r} parameter of attach (option {option}) must be" in err
+        assert f"The option {option} must be" in err and "parameter of attach" not in err
 
 
 def test_a_project_records_the_canonical_labels(files: Path, tmp_path: Path, spy: list[dict[str, Any]]) -> None:

@@ -261,3 +261,30 @@ def test_checkers_start_before_the_first_file_is_decoded_only_when_the_check_is_
     monkeypatch.setenv("ENVLINK_READ_WORKERS", "1")
     archive_check.start_checkers(1000)
     assert started == [2]
+
+
+def _empty_copy(src, dst):
+    """``src`` with its time axis cut to length 0 (stored values, attributes and grid kept)."""
+    import xarray as xr
+
+    with xr.open_dataset(src, decode_cf=False) as ds:
+        ds.isel(time=slice(0, 0)).load().to_netcdf(dst, unlimited_dims=["time"])
+    return dst
+
+
+def test_a_file_with_no_time_step_is_named_as_a_faulty_file(tmp_path, capsys):
+    # checked against docs/archives.md: a faulty file of an archive (a truncated one, one on
+    # another grid) is a GridError naming it, as a single file with an empty time axis is
+    from envlink.cli import main
+
+    paths = daily(tmp_path, [0, 1, 3, 4], name="sst_2010060{}.nc")
+    empty = _empty_copy(paths[1], tmp_path / "sst_20100602.nc")
+    with pytest.raises(GridError, match=rf"The file '{empty}' has no time steps \(its time axis has length 0\)"):
+        open_grid(sorted(tmp_path.glob("*.nc")))
+    assert main(["grid", str(tmp_path / "*.nc")]) == 2
+    err = capsys.readouterr().err
+    assert "sst_20100602.nc' has no time steps" in err and "not in time order" not in err
+    # the empty file listed first (its metadata read in full) is named the same way
+    first = _empty_copy(paths[0], tmp_path / "sst_20100531.nc")
+    with pytest.raises(GridError, match=r"sst_20100531\.nc.* has no steps|sst_20100531\.nc' has no time steps"):
+        open_grid([first, *paths])

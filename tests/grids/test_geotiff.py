@@ -197,6 +197,27 @@ def test_band_dates_as_text_intervals_and_repeating_intervals(tmp_path):
         open_grid(p, band_dates="2001-01-01,2001-02-31,2001-03-01")
 
 
+def test_a_repeating_interval_with_a_bad_part_names_that_part(tmp_path, capsys):
+    # checked against ISO 8601-1:2019 (repeating intervals R[n]/start/duration; durations
+    # PnYnMnWnDTnHnMnS): 'Q' is no duration unit, so the message is about the duration,
+    # not about the count of dates
+    from envlink.cli import main
+    from envlink.grids.geotiff import band_times
+
+    with pytest.raises(InputError, match=r"the duration 'P1Q' is not an ISO 8601 duration.*R/2010-01-01/P1M"):
+        band_times("R/2010-01-01/P1Q", 12)
+    with pytest.raises(InputError, match=r"'PT1H' is an ISO 8601 duration this reader does not take"):
+        band_times("R/2010-01-01/PT1H", 12)
+    with pytest.raises(InputError, match=r"the start '2010-1-01' is not an ISO 8601 date"):
+        band_times("R/2010-1-01/P1M", 12)
+    with pytest.raises(InputError, match=r"expected three parts"):
+        band_times("R/2010-01-01", 12)
+    p = _write_tif(tmp_path / "m.tif", np.ones((NB, NY, NX), dtype="float32"), units="degC")
+    assert main(["grid", str(p), "--band-dates", "R/2010-01-01/P1Q"]) == 2
+    err = capsys.readouterr().err
+    assert "'P1Q' is not an ISO 8601 duration" in err and "--band-dates" in err and "date(s)" not in err
+
+
 def test_band_dates_are_read_in_the_calendar_given(tmp_path):
     p = _write_tif(tmp_path / "c.tif", np.ones((2, NY, NX), dtype="float32"), units="degC")
     g = open_grid(p, band_dates=["2001-02-29", "2001-02-30"], calendar="360_day")
