@@ -66,6 +66,10 @@ LOCATE_OPTIONS = {
 PARAM_OPTIONS = {**LOCATE_OPTIONS, "force": "--force", "progress": {False: "--no-progress"}}
 
 
+#: the locate options' defaults (used by add_locate_arguments and to tell an option given)
+LOCATE_DEFAULTS = {"fuzzy_threshold": 85.0, "fuzzy_margin": 5.0, "plain_season_south": "ambiguous"}
+
+
 def add_locate_arguments(p: argparse.ArgumentParser) -> None:
     """Add the column and reading options of ``envlink sites`` to a parser.
 
@@ -81,9 +85,11 @@ def add_locate_arguments(p: argparse.ArgumentParser) -> None:
                    help="named sites: a CSV with name and coordinates, or a GeoPackage / shapefile / GeoJSON")
     g.add_argument("--gazetteer-name", metavar="COL",
                    help="the gazetteer's site-name column (default: recognised among site, name, reef, ...)")
-    g.add_argument("--fuzzy-threshold", metavar="SCORE", type=float, default=85.0,
+    g.add_argument("--fuzzy-threshold", metavar="SCORE", type=float,
+                   default=LOCATE_DEFAULTS["fuzzy_threshold"],
                    help="lowest spelling-similarity score (0-100) for a fuzzy site-name match (default 85)")
-    g.add_argument("--fuzzy-margin", metavar="POINTS", type=float, default=5.0,
+    g.add_argument("--fuzzy-margin", metavar="POINTS", type=float,
+                   default=LOCATE_DEFAULTS["fuzzy_margin"],
                    help="two places scoring within this many points are ambiguous (default 5)")
     w = p.add_argument_group("when")
     w.add_argument("--period", metavar="COL", help="column with the sampling period in one cell")
@@ -94,7 +100,8 @@ def add_locate_arguments(p: argparse.ArgumentParser) -> None:
                        help="read 05/06/2011 as 5 June 2011")
     order.add_argument("--monthfirst", dest="order", action="store_const", const="monthfirst",
                        help="read 05/06/2011 as 6 May 2011")
-    w.add_argument("--plain-season-south", choices=("ambiguous", "austral", "boreal"), default="ambiguous",
+    w.add_argument("--plain-season-south", choices=("ambiguous", "austral", "boreal"),
+                   default=LOCATE_DEFAULTS["plain_season_south"],
                    help="how a plain season ('summer 2010') at a southern site is read (default: ambiguous, flagged)")
     w.add_argument("--season-months", metavar="JSON_OR_FILE",
                    help="months of named seasons, as JSON or a JSON file, e.g. '{\"wet\": [11,12,1,2,3,4]}'")
@@ -108,11 +115,10 @@ def note_unused_locate_options(args: argparse.Namespace, command: str, keep: tup
     """
     import sys
 
-    defaults = {"fuzzy_threshold": 85.0, "fuzzy_margin": 5.0, "plain_season_south": "ambiguous"}
     given = []
     for param, option in LOCATE_OPTIONS.items():
         value = getattr(args, param, None)
-        if value is None or value == defaults.get(param) or param in keep:
+        if value is None or value == LOCATE_DEFAULTS.get(param) or param in keep:
             continue
         given.append(str(option[value] if isinstance(option, dict) else option))
     if given:
